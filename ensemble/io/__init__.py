@@ -1,0 +1,1 @@
+"""Input and output at the edges: measurement files, time tags."""
