@@ -1,0 +1,1 @@
+"""Internal: the ensemble engine (filter, weights, anomaly detection, the time scale)."""

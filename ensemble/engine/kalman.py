@@ -1,0 +1,304 @@
+"""Internal: the one Kalman filter over all clocks (Jones-Tryon form, projected frame).
+
+State: for clock i the triple (x_i, y_i, d_i) at positions 3i, 3i+1, 3i+2, held in *scaled
+units* (phase in ns, frequency in ns/d, drift in ns/d^2, time in days; units.py), so that the
+covariance entries stay within a few decades of each other.  Clocks that do not use a drift state
+keep d_i = 0 with zero variance and q3 = 0 (the filter then behaves as a two-state model).
+
+Measurements at one epoch are the differences z_i = x_i - x_R (clock i - reference R) of the
+measured clocks, with independent white PM of variance r_i per channel.
+
+Symbols (used in this module only): x state estimate, P its covariance, Phi transition, Q process
+noise, H measurement matrix, R measurement noise, S innovation covariance, K gain, nu innovation.
+
+Why not filterpy's ``KalmanFilter.update`` on the hot path: it forms the dense n x n matrix
+I - K H and two dense n^3 products, and inverts S explicitly.  Here H is a difference of two unit
+rows, so P H^T and A H^T are column differences, and the Joseph product form costs two n x m x n
+products; S is factorised by Cholesky instead of inverted.  The result is the same Joseph update
+(tests compare with filterpy to 1e-12); ``benchmarks/bench_engine.py`` prints the speed ratio.
+
+Frame.  The common phase, frequency and drift of all clocks are unobservable (domain primer d.4):
+after every update the state is re-referenced to the v-weighted mean clock,
+x -> A x, P -> A P A^T with A = (I - 1 v^T) (x) I_3 over the active clocks.  Because A commutes
+with Phi and H A = H, this projection is transparent: the estimated differences between clocks
+are exactly those of the unprojected filter, while P stays bounded.  The weights v choose which
+mean clock the frame follows (the time scale's long-term frequency reference).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg
+
+from ..units import NS_PER_S, SECONDS_PER_DAY, scale_diffusion
+
+#: Scaled-unit factors for (phase, frequency, drift): SI value * factor = scaled value.
+SCALE = np.array([NS_PER_S, NS_PER_S * SECONDS_PER_DAY, NS_PER_S * SECONDS_PER_DAY ** 2])
+
+
+@dataclass
+class UpdateResult:
+    """Innovations of one measurement update (scaled units: ns)."""
+
+    clocks: np.ndarray       # (m,) column indices of the measured clocks (reference excluded)
+    innovation_ns: np.ndarray  # (m,) z - H x_prior
+    covariance_ns2: np.ndarray  # (m, m) S = H P H^T + R
+    gain: np.ndarray         # (3N, m) Kalman gain used
+
+
+class EnsembleFilter:
+    """Kalman filter over all clocks of an ensemble, in scaled units.
+
+    Parameters
+    ----------
+    n_clocks : int
+        Number of clock columns; every clock starts inactive (no state).
+    """
+
+    def __init__(self, n_clocks: int):
+        n = 3 * n_clocks
+        self.n_clocks = n_clocks
+        self.x = np.zeros(n)
+        self.P = np.zeros((n, n))
+        self.active = np.zeros(n_clocks, dtype=bool)
+        #: diffusion coefficients per clock, scaled units (ns^2/d, ns^2/d^3, ns^2/d^5)
+        self.q = np.zeros((n_clocks, 3))
+        #: white PM variance of each clock's channel, scaled units (ns^2)
+        self.r = np.zeros(n_clocks)
+
+    # ------------------------------------------------------------------ set-up and SI helpers
+    def set_noise(self, i: int, q1_s: float, q2_per_s: float, q3_per_s3: float,
+                  r_s2: float) -> None:
+        """Set clock i's diffusion coefficients and channel noise (SI in, scaled inside)."""
+        self.q[i] = [scale_diffusion(q1_s, 1), scale_diffusion(q2_per_s, 2),
+                     scale_diffusion(q3_per_s3, 3)]
+        self.r[i] = r_s2 * NS_PER_S ** 2
+
+    def activate(self, i: int, state_si: np.ndarray, cov_si: np.ndarray,
+                 phase_link: int | None = None) -> None:
+        """Give clock i a state.
+
+        Parameters
+        ----------
+        i : int
+            Clock column.
+        state_si : ndarray, shape (3,)
+            Initial (phase [s], frequency [1], drift [1/s]) in the filter's frame.
+        cov_si : ndarray, shape (3, 3)
+            Initial covariance of that state, SI units; no correlation with other clocks, except
+            when ``phase_link`` is given.
+        phase_link : int, optional
+            If the initial phase was derived from clock ``phase_link``'s phase estimate plus a
+            measured difference, its error is that clock's phase error: the cross-covariance is
+            copied from it (the measurement noise is in ``cov_si``).
+        """
+        s = slice(3 * i, 3 * i + 3)
+        self.x[s] = np.asarray(state_si, dtype=float) * SCALE
+        self.P[s, :] = 0.0
+        self.P[:, s] = 0.0
+        self.P[s, s] = np.asarray(cov_si, dtype=float) * np.outer(SCALE, SCALE)
+        if phase_link is not None:
+            j = 3 * phase_link
+            row = self.P[j, :].copy()
+            row[s] = 0.0
+            self.P[3 * i, :] += row
+            self.P[:, 3 * i] += row
+            self.P[3 * i, 3 * i] += self.P[j, j]
+        self.active[i] = True
+
+    def deactivate(self, i: int) -> None:
+        """Remove clock i's state (exact marginalisation: drop its rows and columns)."""
+        s = slice(3 * i, 3 * i + 3)
+        self.x[s] = 0.0
+        self.P[s, :] = 0.0
+        self.P[:, s] = 0.0
+        self.active[i] = False
+
+    def state_si(self, i: int) -> np.ndarray:
+        """Clock i's (phase [s], frequency [1], drift [1/s]) in the filter's frame."""
+        return self.x[3 * i:3 * i + 3] / SCALE
+
+    def states_si(self) -> np.ndarray:
+        """All states, shape (n_clocks, 3), SI units (zeros for inactive clocks)."""
+        return self.x.reshape(-1, 3) / SCALE
+
+    def cov_si(self, i: int, j: int | None = None) -> np.ndarray:
+        """The 3x3 covariance block (i, j) in SI units."""
+        j = i if j is None else j
+        block = self.P[3 * i:3 * i + 3, 3 * j:3 * j + 3]
+        return block / np.outer(SCALE, SCALE)
+
+    # ------------------------------------------------------------------------------- predict
+    def predict(self, dt_s: float) -> None:
+        """Propagate state and covariance over dt with the exact Phi and Q (primer c.2)."""
+        t = dt_s / SECONDS_PER_DAY
+        h = 0.5 * t * t
+        x3 = self.x.reshape(-1, 3)
+        x3[:, 0] += t * x3[:, 1] + h * x3[:, 2]
+        x3[:, 1] += t * x3[:, 2]
+        n = self.n_clocks
+        p4 = self.P.reshape(n, 3, n, 3)
+        # P <- Phi P (rows), then (Phi P) Phi^T (columns); rows 1 and 2 are read before they change.
+        p4[:, 0] += t * p4[:, 1] + h * p4[:, 2]
+        p4[:, 1] += t * p4[:, 2]
+        p4[:, :, :, 0] += t * p4[:, :, :, 1] + h * p4[:, :, :, 2]
+        p4[:, :, :, 1] += t * p4[:, :, :, 2]
+        act = np.flatnonzero(self.active)
+        if act.size:
+            p4[act, :, act, :] += _q_blocks(self.q[act], t)
+        self._symmetrize()
+
+    # -------------------------------------------------------------------------------- update
+    def innovations(self, z_s: np.ndarray, clocks: np.ndarray, ref: int):
+        """Innovations and their covariance for measurements z (SI, clock - reference).
+
+        Parameters
+        ----------
+        z_s : ndarray, shape (m,)
+            Measured clock - reference [s] of the clocks in ``clocks``.
+        clocks : ndarray of int, shape (m,)
+            Measured clocks (reference excluded), all active.
+        ref : int
+            Reference clock (active).
+
+        Returns
+        -------
+        nu : ndarray (m,) [ns];  S : ndarray (m, m) [ns^2];  B : ndarray (3N, m) = P H^T
+        """
+        px = 3 * np.asarray(clocks)
+        pr = 3 * ref
+        nu = z_s * NS_PER_S - (self.x[px] - self.x[pr])
+        b = self.P[:, px] - self.P[:, [pr]]
+        s = b[px, :] - b[pr, :]
+        s = 0.5 * (s + s.T)
+        s[np.diag_indices_from(s)] += self.r[clocks]
+        return nu, s, b
+
+    def update(self, z_s: np.ndarray, clocks: np.ndarray, ref: int) -> UpdateResult | None:
+        """Measurement update with the Joseph form (structured for difference rows).
+
+        P+ = (I - K H) P (I - K H)^T + K R K^T, evaluated as A + (K R - A H^T) K^T with
+        A = P - K (P H^T)^T, exact for any gain K.
+        """
+        clocks = np.asarray(clocks, dtype=int)
+        if clocks.size == 0:
+            return None
+        nu, s, b = self.innovations(z_s, clocks, ref)
+        chol = scipy.linalg.cho_factor(s, lower=True, check_finite=False)
+        k = scipy.linalg.cho_solve(chol, b.T, check_finite=False).T      # K = P H^T S^-1
+        self.x += k @ nu
+        a = self.P - k @ b.T                                            # (I - K H) P
+        px = 3 * clocks
+        ah = a[:, px] - a[:, [3 * ref]]                                  # A H^T
+        self.P = a + (k * self.r[clocks] - ah) @ k.T
+        self._symmetrize()
+        return UpdateResult(clocks, nu, s, k)
+
+    # ---------------------------------------------------------------------------- the frame
+    def project(self, v: np.ndarray) -> np.ndarray:
+        """Re-reference the state to the v-weighted mean clock of the active clocks.
+
+        Parameters
+        ----------
+        v : ndarray, shape (n_clocks,)
+            Non-negative frame weights, zero for inactive clocks, summing to 1.
+
+        Returns
+        -------
+        ndarray, shape (3,)
+            The shift removed, i.e. the v-mean clock's (phase [s], frequency [1], drift [1/s])
+            in the frame before the projection.
+        """
+        act = np.flatnonzero(self.active)
+        w = np.asarray(v, dtype=float)[act]
+        n = self.n_clocks
+        x3 = self.x.reshape(n, 3)
+        shift = w @ x3[act]
+        x3[act] -= shift
+        p4 = self.P.reshape(n, 3, n, 3)
+        rows = np.einsum("i,iajb->ajb", w, p4[act])           # V^T P, shape (3, n, 3)
+        p4[act] -= rows[None]
+        cols = np.einsum("j,iajb->iab", w, p4[:, :, act, :])  # (A P) V, shape (n, 3, 3)
+        p4[:, :, act, :] -= cols[:, :, None, :]
+        self._symmetrize()
+        return shift / SCALE
+
+    # ------------------------------------------------------------------------ corrections
+    def correct(self, i: int, delta_si: np.ndarray, inflate_si: np.ndarray | None = None) -> None:
+        """Add a step to clock i's state (absorbing a detected jump) and inflate its variance.
+
+        Parameters
+        ----------
+        delta_si : ndarray, shape (3,)
+            Step to add to (phase [s], frequency [1], drift [1/s]).
+        inflate_si : ndarray, shape (3,), optional
+            Variances added to the diagonal of clock i's block [s^2, 1, 1/s^2].
+        """
+        s = slice(3 * i, 3 * i + 3)
+        self.x[s] += np.asarray(delta_si, dtype=float) * SCALE
+        if inflate_si is not None:
+            idx = np.arange(3 * i, 3 * i + 3)
+            self.P[idx, idx] += np.asarray(inflate_si, dtype=float) * SCALE ** 2
+
+    def min_eigenvalue(self) -> float:
+        """Smallest eigenvalue of P restricted to the active states (scaled units)."""
+        idx = np.flatnonzero(np.repeat(self.active, 3))
+        sub = self.P[np.ix_(idx, idx)]
+        keep = np.diag(sub) > 0
+        if not keep.any():
+            return 0.0
+        return float(np.linalg.eigvalsh(sub[np.ix_(keep, keep)])[0])
+
+    def _symmetrize(self) -> None:
+        self.P += self.P.T
+        self.P *= 0.5
+
+    # ------------------------------------------------------------------------- persistence
+    def state_dict(self) -> dict:
+        """Everything needed to continue the filter later (arrays only)."""
+        return {"x": self.x.copy(), "P": self.P.copy(), "active": self.active.copy(),
+                "q": self.q.copy(), "r": self.r.copy()}
+
+    @classmethod
+    def from_state(cls, state: dict) -> "EnsembleFilter":
+        """Rebuild a filter saved with :meth:`state_dict`."""
+        f = cls(len(state["active"]))
+        f.x = np.array(state["x"], dtype=float)
+        f.P = np.array(state["P"], dtype=float)
+        f.active = np.array(state["active"], dtype=bool)
+        f.q = np.array(state["q"], dtype=float)
+        f.r = np.array(state["r"], dtype=float)
+        return f
+
+
+def _q_blocks(q: np.ndarray, t: float) -> np.ndarray:
+    """Exact Q(t) blocks for scaled diffusion coefficients q (k, 3) and t in days."""
+    q1, q2, q3 = q[:, 0], q[:, 1], q[:, 2]
+    out = np.empty((q.shape[0], 3, 3))
+    t2, t3, t4, t5 = t * t, t ** 3, t ** 4, t ** 5
+    out[:, 0, 0] = q1 * t + q2 * t3 / 3.0 + q3 * t5 / 20.0
+    out[:, 0, 1] = out[:, 1, 0] = q2 * t2 / 2.0 + q3 * t4 / 8.0
+    out[:, 1, 1] = q2 * t + q3 * t3 / 3.0
+    out[:, 0, 2] = out[:, 2, 0] = q3 * t3 / 6.0
+    out[:, 1, 2] = out[:, 2, 1] = q3 * t2 / 2.0
+    out[:, 2, 2] = q3 * t
+    return out
+
+
+def reference_filterpy_step(x: np.ndarray, P: np.ndarray, phi: np.ndarray, q: np.ndarray,
+                            z: np.ndarray, H: np.ndarray, R: np.ndarray):
+    """One predict + update with filterpy's KalmanFilter (dense Joseph form).
+
+    The independent route the tests and the benchmark compare :class:`EnsembleFilter` with.
+    All arrays in consistent (scaled) units; returns (x_post, P_post).
+    """
+    from filterpy.kalman import KalmanFilter
+
+    kf = KalmanFilter(dim_x=len(x), dim_z=len(z))
+    kf.x = x.copy()
+    kf.P = P.copy()
+    kf.predict(F=phi, Q=q)
+    kf.update(np.asarray(z, dtype=float), R=R, H=H)
+    return kf.x.copy(), kf.P.copy()

@@ -1,0 +1,69 @@
+"""Configuration loading and validation."""
+
+import tomllib
+
+import pytest
+
+from ensemble.config import default_config, load_config, parse_config
+from ensemble.errors import ConfigError
+
+
+def test_defaults_round_trip_as_toml():
+    cfg = default_config()
+    text = cfg.to_toml()
+    again = parse_config(tomllib.loads(text))
+    assert again.to_toml() == text
+    assert cfg.ensemble.weight_cap == 0.0
+    assert cfg.detection.hold_sigma == 3.5
+
+
+@pytest.mark.parametrize("doc, key", [
+    ({"ensembel": {}}, "ensembel"),
+    ({"ensemble": {"weight_kap": 2.0}}, "ensemble.weight_kap"),
+    ({"ensemble": {"weight_cap": 0.5}}, "ensemble.weight_cap"),
+    ({"ensemble": {"probation_days": -1.0}}, "ensemble.probation_days"),
+    ({"ensemble": {"drift_states": "yes"}}, "ensemble.drift_states"),
+    ({"detection": {"false_alarm_rate": 0.5}}, "detection.false_alarm_rate"),
+    ({"detection": {"cusum_allowances": []}}, "detection.cusum_allowances"),
+    ({"clocks": {"H1": {"type": "maser"}}}, "clocks.H1.type"),
+    ({"clocks": {"H1": {"q1_s": -1e-26}}}, "clocks.H1.q1_s"),
+    ({"clocks": {"bad name": {}}}, "clocks.bad name"),
+])
+def test_bad_keys_are_named(doc, key):
+    with pytest.raises(ConfigError) as info:
+        parse_config(doc, "lab.toml")
+    assert info.value.key == key
+    assert f"'{key}'" in str(info.value)
+    assert "lab.toml" in str(info.value)
+
+
+def test_unknown_key_lists_the_known_ones():
+    with pytest.raises(ConfigError, match="known keys in \\[ensemble\\]: drift_states"):
+        parse_config({"ensemble": {"nope": 1}})
+
+
+def test_choices_are_listed():
+    with pytest.raises(ConfigError, match="allowed: 'auto', 'hydrogen_maser'"):
+        parse_config({"clocks": {"H1": {"type": "maser"}}})
+
+
+def test_file_errors(tmp_path):
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[ensemble\nx = 1\n")
+    with pytest.raises(ConfigError, match="not valid TOML"):
+        load_config(bad)
+    enc = tmp_path / "enc.toml"
+    enc.write_bytes(b"\xff\xfe[\x00")
+    with pytest.raises(ConfigError, match="not UTF-8"):
+        load_config(enc)
+    with pytest.raises(ConfigError, match="cannot read"):
+        load_config(tmp_path / "missing.toml")
+
+
+def test_clock_tables_and_ints_for_floats():
+    cfg = parse_config({"ensemble": {"probation_days": 3},
+                        "clocks": {"H1": {"type": "hydrogen_maser", "q1_s": 1e-26}}})
+    assert cfg.ensemble.probation_days == 3.0
+    assert cfg.clock("H1").q1_s == 1e-26
+    assert cfg.clock("ZZ").type == "auto"
+    assert "q2_per_s" not in cfg.to_toml()  # NaN ("estimate") keys are not written
