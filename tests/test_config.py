@@ -24,7 +24,7 @@ def test_defaults_round_trip_as_toml():
     ({"ensemble": {"probation_days": -1.0}}, "ensemble.probation_days"),
     ({"ensemble": {"drift_states": "yes"}}, "ensemble.drift_states"),
     ({"detection": {"false_alarm_rate": 0.5}}, "detection.false_alarm_rate"),
-    ({"detection": {"cusum_allowances": []}}, "detection.cusum_allowances"),
+    ({"detection": {"window_epochs": 2}}, "detection.window_epochs"),
     ({"clocks": {"H1": {"type": "maser"}}}, "clocks.H1.type"),
     ({"clocks": {"H1": {"q1_s": -1e-26}}}, "clocks.H1.q1_s"),
     ({"clocks": {"bad name": {}}}, "clocks.bad name"),

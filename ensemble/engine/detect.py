@@ -11,11 +11,15 @@ fault localises to the clock that has it, the reference included; domain primer 
   phase step and a frequency step, each a known signature s with unknown size a:
   l = (s^T C^-1 r)^2 / (s^T C^-1 s), a = s^T C^-1 r / s^T C^-1 s, where C is the covariance
   of the frozen multi-step prediction errors from the clock model.
-* **Slow changes.**  A bank of two-sided CUSUM tests (Page 1954, Biometrika 41) on the
-  standardised residuals catches frequency changes too small for the hold threshold; their
-  thresholds follow from the false-alarm rate through Siegmund's approximation of the average
-  run length, ARL0 = (exp(2 k b) - 1 - 2 k b) / (2 k^2), b = h + 1.166 (Siegmund 1985,
-  Sequential Analysis, ch. X; the 1.166 = 2 x 0.583 overshoot correction).
+* **Slow changes.**  A windowed GLR with the filter's own response (Willsky & Jones 1976) runs
+  on every clock for a frequency step and a drift change at each onset of the last W epochs:
+  the signature of a unit jump f at onset theta in the residuals follows the recursion
+  G(k) = [Phi(t_k - t_theta) f]_0 - [Phi(dt) F(k-1)]_0, F(k) = Phi(dt) F(k-1) + g_k G(k),
+  where g_k is the filter's correction of the clock's state per unit residual; then
+  d = sum G r / var, C = sum G^2 / var, l = d^2 / C, size d / C.  The threshold follows from the
+  false-alarm rate through the tail of the maximum over onsets, which our Monte Carlo
+  calibration (benchmarks/calibrate_detection.py) puts at
+  P(alarm per epoch) = 0.11 h ln(W) P(chi2_1 > h) for 14 <= h <= 24 and W = 48.
 """
 
 from __future__ import annotations
@@ -39,115 +43,135 @@ def glr_threshold(false_alarm_rate: float, n_hypotheses: int = 3) -> float:
     return float(scipy.stats.chi2.isf(false_alarm_rate / n_hypotheses, 1))
 
 
-def cusum_arl0(k: float, h: float) -> float:
-    """Siegmund's approximation of the in-control average run length of a one-sided CUSUM.
+def window_threshold(false_alarm_rate: float, window: int) -> float:
+    """Threshold of the windowed GLR (maximum over ``window`` onsets) for a false-alarm rate.
 
-    Parameters
-    ----------
-    k : float
-        Reference value (allowance) in units of the standard deviation.
-    h : float
-        Decision threshold in the same units.
+    Solves 0.11 h ln(W) P(chi2_1 > h) = rate (calibration of the maximum over onsets of a
+    mean-shift GLR in white noise; see the module docstring).
     """
-    b = h + 1.166
-    return (math.exp(2.0 * k * b) - 1.0 - 2.0 * k * b) / (2.0 * k * k)
+    ln_w = math.log(max(window, 2))
+
+    def excess(h):
+        return math.log(0.11 * h * ln_w * scipy.stats.chi2.sf(h, 1)) - math.log(false_alarm_rate)
+
+    return float(scipy.optimize.brentq(excess, 1.0, 400.0))
 
 
-def cusum_threshold(k: float, arl0: float) -> float:
-    """Threshold h giving the in-control average run length ``arl0`` (Siegmund approximation)."""
-    return float(scipy.optimize.brentq(lambda h: cusum_arl0(k, h) - arl0, 1e-6, 200.0))
+#: Hypotheses of the slow test and their jump directions in (phase, frequency, drift).
+SLOW_HYPOTHESES = ("frequency_step", "drift_change")
 
 
-def cusum_delay(k: float, h: float, shift: float) -> float:
-    """Approximate detection delay [epochs] of a one-sided CUSUM for a mean shift (Siegmund)."""
-    d = shift - k
-    b = h + 1.166
-    if abs(d) < 1e-9:
-        return b * b
-    return (math.exp(-2.0 * d * b) + 2.0 * d * b - 1.0) / (2.0 * d * d)
-
-
-@dataclass
-class CusumBank:
-    """Two-sided CUSUM tests with several reference values, for many clocks at once.
+class SignatureGLR:
+    """Windowed Willsky-Jones GLR for frequency steps and drift changes of many clocks.
 
     Parameters
     ----------
     n_clocks : int
-    allowances : sequence of float
-        Reference values k (in standard deviations), one CUSUM pair each.
-    false_alarm_rate : float
-        Allowed false alarms per clock-epoch for the whole bank (split evenly over the
-        2 * len(allowances) one-sided tests).
+    window : int
+        Number of onsets kept (the last ``window`` epochs).
+    threshold : float
+        Alarm threshold on l.
     """
 
-    n_clocks: int
-    allowances: tuple
-    false_alarm_rate: float
-    thresholds: np.ndarray = field(init=False)
-    s_pos: np.ndarray = field(init=False)
-    s_neg: np.ndarray = field(init=False)
-    zero_pos: np.ndarray = field(init=False)
-    zero_neg: np.ndarray = field(init=False)
+    def __init__(self, n_clocks: int, window: int, threshold: float):
+        self.n = n_clocks
+        self.window = window
+        self.threshold = threshold
+        shape = (n_clocks, 2, window)
+        self.F = np.zeros(shape + (3,))        # filter response per unit jump (SI)
+        self.d = np.zeros(shape)
+        self.C = np.zeros(shape)
+        self.onset_t = np.full(window, np.nan)   # onset time of each slot [s]
+        self.onset_mjd = np.full(window, np.nan)
+        self.live = np.zeros((n_clocks, window), dtype=bool)
+        self.head = 0
 
-    def __post_init__(self):
-        k = np.asarray(self.allowances, dtype=float)
-        arl0 = 2.0 * k.size / self.false_alarm_rate
-        self.thresholds = np.array([cusum_threshold(float(ki), arl0) for ki in k])
-        shape = (self.n_clocks, k.size)
-        self.s_pos = np.zeros(shape)
-        self.s_neg = np.zeros(shape)
-        # epoch index of the last time each statistic was zero (the change-time estimate)
-        self.zero_pos = np.zeros(shape, dtype=np.int64)
-        self.zero_neg = np.zeros(shape, dtype=np.int64)
+    def step(self, t_prev: float, mjd_prev: float, dt: float, t_now: float,
+             gain: np.ndarray, residual: np.ndarray, var: np.ndarray, valid: np.ndarray,
+             has_drift: np.ndarray):
+        """Advance one epoch and return alarms.
 
-    def step(self, epoch: int, z: np.ndarray, valid: np.ndarray):
-        """Feed standardised residuals; return a list of (clock, sign, change_epoch, statistic).
+        Parameters
+        ----------
+        t_prev, mjd_prev : float
+            Time [s] and tag of the previous epoch (the onset of the new slot).
+        dt : float
+            Interval since the previous epoch [s].
+        t_now : float
+            This epoch's time [s].
+        gain : ndarray, shape (n, 3)
+            Correction of each clock's (phase, frequency, drift) per unit residual this epoch
+            (zero where the clock was not updated).
+        residual, var : ndarray, shape (n,)
+            Conditional residuals [s] and their variances [s^2].
+        valid : ndarray of bool, shape (n,)
+            Clocks whose residual counts this epoch.
+        has_drift : ndarray of bool, shape (n,)
+            Clocks with a drift state (others are not tested for drift changes).
 
-        Clocks with ``valid`` False keep their statistics unchanged.
+        Returns
+        -------
+        list of (clock, hypothesis, onset_mjd, size, uncertainty, statistic, correction)
+            ``correction`` is the state step (3,) that brings the clock's estimate to the
+            detected jump: Phi(t - t_theta) f a - F a.
         """
-        k = np.asarray(self.allowances, dtype=float)[None, :]
-        zz = np.where(valid, z, 0.0)[:, None]
-        sp = np.maximum(0.0, self.s_pos + zz - k)
-        sn = np.maximum(0.0, self.s_neg - zz - k)
-        v = valid[:, None]
-        self.s_pos = np.where(v, sp, self.s_pos)
-        self.s_neg = np.where(v, sn, self.s_neg)
-        self.zero_pos = np.where(v & (self.s_pos == 0.0), epoch, self.zero_pos)
-        self.zero_neg = np.where(v & (self.s_neg == 0.0), epoch, self.zero_neg)
+        j = self.head
+        self.onset_t[j] = t_prev
+        self.onset_mjd[j] = mjd_prev
+        self.F[:, :, j] = 0.0
+        self.d[:, :, j] = 0.0
+        self.C[:, :, j] = 0.0
+        self.live[:, j] = True
+        self.head = (j + 1) % self.window
+        # propagate the responses: F <- Phi(dt) F
+        F = self.F
+        F[..., 0] += dt * F[..., 1] + 0.5 * dt * dt * F[..., 2]
+        F[..., 1] += dt * F[..., 2]
+        age = t_now - self.onset_t                              # (window,)
+        true0 = np.stack([age, 0.5 * age * age])                # (2, window) phase of Phi f
+        g_sig = true0[None] - F[..., 0]                         # (n, 2, window)
+        g_sig = np.where(np.isfinite(g_sig), g_sig, 0.0)
+        v = valid[:, None, None] & self.live[:, None, :]
+        v = v & np.array([True, True])[None, :, None]
+        v[:, 1, :] &= has_drift[:, None]
+        r = np.where(valid, residual, 0.0)[:, None, None]
+        w = np.where(valid, 1.0 / np.where(valid, var, 1.0), 0.0)[:, None, None]
+        self.d += np.where(v, g_sig * r * w, 0.0)
+        self.C += np.where(v, g_sig * g_sig * w, 0.0)
+        F += np.where(v[..., None], gain[:, None, None, :] * g_sig[..., None], 0.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            stat = np.where(self.C > 0, self.d * self.d / self.C, 0.0)
+        stat[:, 1, :] = np.where(has_drift[:, None], stat[:, 1, :], 0.0)
         alarms = []
-        over_p = self.s_pos > self.thresholds[None, :]
-        over_n = self.s_neg > self.thresholds[None, :]
-        for i in np.flatnonzero((over_p | over_n).any(axis=1)):
-            # the earliest change time among the tests that fired, and the largest statistic
-            if over_p[i].any() and (not over_n[i].any()
-                                    or (self.s_pos[i] / self.thresholds).max()
-                                    >= (self.s_neg[i] / self.thresholds).max()):
-                j = np.flatnonzero(over_p[i])
-                alarms.append((int(i), 1, int(self.zero_pos[i, j].min()),
-                               float((self.s_pos[i, j] / self.thresholds[j]).max())))
-            else:
-                j = np.flatnonzero(over_n[i])
-                alarms.append((int(i), -1, int(self.zero_neg[i, j].min()),
-                               float((self.s_neg[i, j] / self.thresholds[j]).max())))
+        hot = np.flatnonzero((stat > self.threshold).any(axis=(1, 2)))
+        for i in hot:
+            h, slot = np.unravel_index(int(np.argmax(stat[i])), stat[i].shape)
+            size = self.d[i, h, slot] / self.C[i, h, slot]
+            unc = 1.0 / math.sqrt(self.C[i, h, slot])
+            a = age[slot]
+            truth = np.array([a, 1.0, 0.0]) if h == 0 else np.array([0.5 * a * a, a, 1.0])
+            correction = (truth - self.F[i, h, slot]) * size
+            alarms.append((int(i), SLOW_HYPOTHESES[h], float(self.onset_mjd[slot]), float(size),
+                           float(unc), float(stat[i, h, slot]), correction))
         return alarms
 
-    def reset(self, i: int, epoch: int) -> None:
-        """Restart clock i's tests (after a detected change)."""
-        self.s_pos[i] = 0.0
-        self.s_neg[i] = 0.0
-        self.zero_pos[i] = epoch
-        self.zero_neg[i] = epoch
+    def reset(self, i: int) -> None:
+        """Forget clock i's onsets (after a detection or a re-initialisation)."""
+        self.live[i] = False
+        self.F[i] = 0.0
+        self.d[i] = 0.0
+        self.C[i] = 0.0
 
     def state_dict(self) -> dict:
-        return {"s_pos": self.s_pos.copy(), "s_neg": self.s_neg.copy(),
-                "zero_pos": self.zero_pos.copy(), "zero_neg": self.zero_neg.copy()}
+        return {"F": self.F.copy(), "d": self.d.copy(), "C": self.C.copy(),
+                "onset_t": self.onset_t.copy(), "onset_mjd": self.onset_mjd.copy(),
+                "live": self.live.copy(), "head": np.array(self.head)}
 
     def load_state(self, state: dict) -> None:
-        self.s_pos = np.array(state["s_pos"], dtype=float)
-        self.s_neg = np.array(state["s_neg"], dtype=float)
-        self.zero_pos = np.array(state["zero_pos"], dtype=np.int64)
-        self.zero_neg = np.array(state["zero_neg"], dtype=np.int64)
+        for key in ("F", "d", "C", "onset_t", "onset_mjd"):
+            setattr(self, key, np.array(state[key], dtype=float))
+        self.live = np.array(state["live"], dtype=bool)
+        self.head = int(state["head"])
 
 
 def frozen_prediction_covariance(dt_s: np.ndarray, prior_cov: np.ndarray, q: np.ndarray,

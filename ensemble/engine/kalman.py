@@ -42,10 +42,10 @@ SCALE = np.array([NS_PER_S, NS_PER_S * SECONDS_PER_DAY, NS_PER_S * SECONDS_PER_D
 class UpdateResult:
     """Innovations of one measurement update (scaled units: ns)."""
 
-    clocks: np.ndarray       # (m,) column indices of the measured clocks (reference excluded)
-    innovation_ns: np.ndarray  # (m,) z - H x_prior
-    covariance_ns2: np.ndarray  # (m, m) S = H P H^T + R
-    gain: np.ndarray         # (3N, m) Kalman gain used
+    clocks: np.ndarray          # (m,) column indices of the measured clocks (reference excluded)
+    innovation_ns: np.ndarray   # (m,) z - H x_prior
+    covariance_ns2: np.ndarray | None  # (m, m) S = H P H^T + R when computed here
+    gain: np.ndarray            # (3N, m) Kalman gain used
 
 
 class EnsembleFilter:
@@ -151,6 +151,15 @@ class EnsembleFilter:
         self._symmetrize()
 
     # -------------------------------------------------------------------------------- update
+    def innovation_covariance(self, clocks: np.ndarray, ref: int) -> np.ndarray:
+        """S = H P H^T + R for the channels clock - ref of ``clocks`` (scaled units, ns^2)."""
+        px = 3 * np.asarray(clocks)
+        pr = 3 * ref
+        s = (self.P[np.ix_(px, px)] - self.P[px, pr][:, None] - self.P[pr, px][None, :]
+             + self.P[pr, pr])
+        s[np.diag_indices_from(s)] += self.r[clocks]
+        return s
+
     def innovations(self, z_s: np.ndarray, clocks: np.ndarray, ref: int):
         """Innovations and their covariance for measurements z (SI, clock - reference).
 
@@ -165,36 +174,63 @@ class EnsembleFilter:
 
         Returns
         -------
-        nu : ndarray (m,) [ns];  S : ndarray (m, m) [ns^2];  B : ndarray (3N, m) = P H^T
+        nu : ndarray (m,) [ns];  S : ndarray (m, m) [ns^2]
         """
         px = 3 * np.asarray(clocks)
-        pr = 3 * ref
-        nu = z_s * NS_PER_S - (self.x[px] - self.x[pr])
-        b = self.P[:, px] - self.P[:, [pr]]
-        s = b[px, :] - b[pr, :]
-        s = 0.5 * (s + s.T)
-        s[np.diag_indices_from(s)] += self.r[clocks]
-        return nu, s, b
+        nu = z_s * NS_PER_S - (self.x[px] - self.x[3 * ref])
+        return nu, self.innovation_covariance(clocks, ref)
 
-    def update(self, z_s: np.ndarray, clocks: np.ndarray, ref: int) -> UpdateResult | None:
+    def update(self, z_s: np.ndarray, clocks: np.ndarray, ref: int,
+               chol: tuple | None = None) -> UpdateResult | None:
         """Measurement update with the Joseph form (structured for difference rows).
 
         P+ = (I - K H) P (I - K H)^T + K R K^T, evaluated as A + (K R - A H^T) K^T with
         A = P - K (P H^T)^T, exact for any gain K.
+
+        Parameters
+        ----------
+        z_s, clocks, ref
+            As for :meth:`innovations`.
+        chol : tuple, optional
+            ``scipy.linalg.cho_factor`` of S for exactly these channels, when the caller has it.
         """
         clocks = np.asarray(clocks, dtype=int)
         if clocks.size == 0:
             return None
-        nu, s, b = self.innovations(z_s, clocks, ref)
-        chol = scipy.linalg.cho_factor(s, lower=True, check_finite=False)
+        px = 3 * clocks
+        pr = 3 * ref
+        nu = z_s * NS_PER_S - (self.x[px] - self.x[pr])
+        b = self.P[:, px] - self.P[:, [pr]]                            # P H^T
+        if chol is None:
+            s = b[px, :] - b[pr, :]
+            s = 0.5 * (s + s.T)
+            s[np.diag_indices_from(s)] += self.r[clocks]
+            chol = scipy.linalg.cho_factor(s, lower=True, check_finite=False)
         k = scipy.linalg.cho_solve(chol, b.T, check_finite=False).T      # K = P H^T S^-1
         self.x += k @ nu
         a = self.P - k @ b.T                                            # (I - K H) P
-        px = 3 * clocks
-        ah = a[:, px] - a[:, [3 * ref]]                                  # A H^T
+        ah = a[:, px] - a[:, [pr]]                                       # A H^T
         self.P = a + (k * self.r[clocks] - ah) @ k.T
         self._symmetrize()
-        return UpdateResult(clocks, nu, s, k)
+        return UpdateResult(clocks, nu, None, k)
+
+    def relative_gains(self, result: UpdateResult, ref: int, v: np.ndarray) -> np.ndarray:
+        """Correction of each clock's state relative to the v-mean clock per unit residual.
+
+        For a measured clock i (channel i) the unit residual is a unit innovation in its
+        channel; for the reference it is -1 in every channel.  Returns (n_clocks, 3) in SI
+        units (phase per phase: 1; frequency per phase: 1/s; drift per phase: 1/s^2).
+        """
+        out = np.zeros((self.n_clocks, 3))
+        if result is None:
+            return out
+        k3 = result.gain.reshape(self.n_clocks, 3, -1)
+        rel = k3 - np.einsum("j,jam->am", v, k3)[None]
+        cols = np.arange(result.clocks.size)
+        out[result.clocks] = rel[result.clocks, :, cols]
+        out[ref] = -rel[ref].sum(axis=1)
+        # scaled (ns -> ns, ns/d per ns, ns/d^2 per ns) to SI per s of phase
+        return out * (1.0 / SCALE) * SCALE[0]
 
     # ---------------------------------------------------------------------------- the frame
     def project(self, v: np.ndarray) -> np.ndarray:

@@ -93,16 +93,9 @@ class DetectionSettings:
     decision_margin: float = setting(
         10.0, unit="1", minimum=0.0,
         doc="the best hypothesis must beat the second by this much (log-likelihood ratio x2)")
-    cusum_allowances: tuple = setting(
-        (0.5, 1.5), unit="1",
-        doc="reference values of the slow-change tests, in residual standard deviations")
-
-    def validate(self, prefix: str, path: str | None) -> None:
-        k = self.cusum_allowances
-        if not k or any(not isinstance(v, (int, float)) or isinstance(v, bool)
-                        or not math.isfinite(v) or v <= 0 for v in k):
-            raise ConfigError("expected a non-empty list of positive numbers",
-                              key=f"{prefix}.cusum_allowances", value=list(k), path=path)
+    window_epochs: int = setting(
+        48, minimum=4, maximum=1000,
+        doc="onsets kept by the slow-change test (frequency steps, drift changes)")
 
 
 @dataclass(frozen=True)
