@@ -113,7 +113,7 @@ def test_flicker_fm_statistics_hold_from_the_first_sample():
     # Cross-check: one Gaussian second difference per realisation, so the sum of squares over
     # R realisations is exactly sigma^2 chi^2_R.  At the very first sample the AVAR at m = 32
     # must be the long-run value 2 ln 2 h_-1 (x 1.0004 for the discrete model); without the
-    # warm-up it would be about 8 % low (domain of the Kasdin-Walter start-up transient).
+    # warm-up it would be about 8 % low (start-up transient of the filter without a past).
     hm1, m, n, reps = 1e-28, 32, 96, 6000
     rng = np.random.default_rng(16)
     d2 = np.array([(lambda x: x[2 * m] - 2 * x[m] + x[0])(flicker_fm_phase(hm1, TAU0, n, rng))

@@ -242,7 +242,8 @@ def test_programmatic_scenarios_round_trip():
 
 
 def test_benchmark_scenarios_are_valid():
-    names = {p.stem: Scenario.from_toml(p) for p in sorted((CONFIG_DIR / "scenarios").glob("*.toml"))}
+    files = sorted((CONFIG_DIR / "scenarios").glob("*.toml"))
+    names = {p.stem: Scenario.from_toml(p) for p in files}
     assert set(names) == {"mixed_lab_clean", "mixed_lab_anomalies", "clocks100_1year",
                           "five_clocks_10years"}
     assert len(names["clocks100_1year"].clocks) == 100

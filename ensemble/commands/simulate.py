@@ -18,10 +18,11 @@ log = logging.getLogger("ensemble")
 def add_parser(sub, parents) -> None:
     p = sub.add_parser("simulate", parents=parents,
                        help="simulate a clock laboratory from a scenario file",
-                       description="Simulate clocks of given types with seeded power-law noise "
-                                   "and injected anomalies; write the measurements clock - "
-                                   "reference as a long CSV and, optionally, the full truth "
-                                   "as HDF5.  The same scenario always gives the same bytes.",
+                       description="Simulate clocks of given types with seeded power-law "
+                                   "noise and injected anomalies;\nwrite the measurements "
+                                   "clock - reference as a long CSV and, optionally, the\n"
+                                   "full truth as HDF5.  The same scenario always gives the "
+                                   "same bytes.",
                        epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("scenario", metavar="SCENARIO.toml", help="scenario file")
     p.add_argument("-o", "--output", metavar="MEASUREMENTS.csv", required=True,
@@ -51,7 +52,7 @@ def main(args: argparse.Namespace) -> int:
             write_truth(truth_tmp, sim, atomic=False)
     sim_cfg = scenario.simulation
     log.info("simulated %d clocks x %d epochs (tau0 %g s, %g d from MJD %.4f, seed %d), "
-             "%d injected events", sim.n_clocks, sim.n_epochs, sim.tau0_s, sim_cfg.duration_days,
+             "%d events injected", sim.n_clocks, sim.n_epochs, sim.tau0_s, sim_cfg.duration_days,
              sim_cfg.start_mjd, scenario.seed, len(sim.events))
     log.info("wrote %s (%d rows)%s", args.output, rows,
              f" and {args.truth}" if args.truth else "")

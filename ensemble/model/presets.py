@@ -184,12 +184,12 @@ class ClockPreset:
                           r_s2=float(white_pm_s) ** 2)
 
     def adev(self, tau_s, white_pm_s: float = 0.0, drift_per_s: float = 0.0) -> np.ndarray:
-        """Expected Allan deviation of a clock of this type at tau (see :func:`expected_adev`)."""
+        """Expected Allan deviation of this type at tau (see :func:`expected_adev`)."""
         return np.sqrt(allan_variance_from_h(self.h_coefficients(), tau_s, white_pm_s,
                                              drift_per_s))
 
     def hdev(self, tau_s, white_pm_s: float = 0.0) -> np.ndarray:
-        """Expected Hadamard deviation of a clock of this type at tau (see :func:`expected_hdev`)."""
+        """Expected Hadamard deviation of this type at tau (see :func:`expected_hdev`)."""
         return np.sqrt(hadamard_variance_from_h(self.h_coefficients(), tau_s, white_pm_s))
 
 
@@ -261,7 +261,8 @@ PRESETS: dict[str, ClockPreset] = {
         flicker_fm_adev=1.0e-15,      # c.5: ~3e-15 at 1e3-1e4 s in total, best 4-6e-16 near 1e4 s
         rw_fm_adev=1.0e-15,           # h.3: random-walk FM reaching 1e-15 at 10 d
         rw_fm_tau_s=10 * _DAY_S,
-        drift_per_day=1.0e-15,        # c.5: < 1e-15/d spec, < 1e-16/d observed, fleet -0.2..+9.6e-15/d
+        drift_per_day=1.0e-15,        # c.5: spec < 1e-15/d, observed < 1e-16/d,
+                                      # a fleet from -0.2 to +9.6e-15/d
         frequency_offset=1.0e-13,     # assumption (common practice, no source): tuning offset
     ),
     "cesium_standard": ClockPreset(
@@ -286,7 +287,7 @@ PRESETS: dict[str, ClockPreset] = {
         key="rubidium", label="rubidium vapour cell (commercial)",
         white_fm_adev_1s=2.0e-11,     # c.5: 1-3e-11 at 1 s
         flicker_fm_adev=3.0e-13,      # c.5: floor 1e-13-1e-12
-        rw_fm_adev=3.0e-13,           # assumption (no source): random walk reaching the floor at 10 d
+        rw_fm_adev=3.0e-13,           # assumption (no source): reaches the floor at 10 d
         rw_fm_tau_s=10 * _DAY_S,
         drift_per_day=1.0e-12,        # c.5: 1e-11-5e-11 per month (3e-13-1.7e-12 per day)
         frequency_offset=1.0e-11,     # assumption (common practice, no source): calibration offset

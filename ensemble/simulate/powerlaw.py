@@ -182,7 +182,8 @@ def white_fm_phase(h0_s: float, tau0_s: float, n: int, rng: np.random.Generator,
     return _integrate(steps)
 
 
-def flicker_fm_phase(h_minus1: float, tau0_s: float, n: int, rng: np.random.Generator) -> np.ndarray:
+def flicker_fm_phase(h_minus1: float, tau0_s: float, n: int,
+                     rng: np.random.Generator) -> np.ndarray:
     """Flicker frequency noise, S_y(f) = h_-1 / f (Kasdin & Walter filter, integrated to phase).
 
     The mean frequency of each interval is taken relative to that of the interval just before
