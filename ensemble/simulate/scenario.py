@@ -192,7 +192,8 @@ class Scenario:
                   for i, t in enumerate(_array(table.get("clocks"), "clocks", path))]
         for i, t in enumerate(_array(table.get("clock_groups"), "clock_groups", path)):
             clocks.extend(_expand_group(t, i, f"clock_groups[{i}]", sim.seed, path))
-        changes = tuple(build_section(ReferenceChangeSettings, t, f"reference_changes[{i}]", path)
+        changes = tuple(_build(ReferenceChangeSettings, t, f"reference_changes[{i}]", path,
+                               required=("day", "clock"))
                         for i, t in enumerate(_array(table.get("reference_changes"),
                                                      "reference_changes", path)))
         anomalies = tuple(_anomaly_from_table(t, f"anomalies[{i}]", path)
@@ -409,9 +410,7 @@ def _levels(table, key: str, path) -> dict[str, float]:
 def _clock_from_table(table: Mapping[str, Any], key: str, path) -> ClockSpec:
     table = dict(table)
     levels = _levels(table.pop("levels", None), f"{key}.levels", path)
-    s = build_section(ClockSettings, table, key, path)
-    if "name" not in table:
-        raise ConfigError("missing key 'name'", key=f"{key}.name", path=path)
+    s = _build(ClockSettings, table, key, path, required=("name", "type"), extra=("levels",))
     return ClockSpec(s.name, s.type, PRESETS[s.type].with_levels(**levels), s.frequency_offset,
                      s.drift_per_day, s.phase_offset_s, levels)
 
@@ -420,7 +419,7 @@ def _expand_group(table: Mapping[str, Any], index: int, key: str, seed: int,
                   path) -> list[ClockSpec]:
     table = dict(table)
     levels = _levels(table.pop("levels", None), f"{key}.levels", path)
-    g = build_section(ClockGroupSettings, table, key, path)
+    g = _build(ClockGroupSettings, table, key, path, required=("type",), extra=("levels",))
     prefix = g.name_prefix or _GROUP_PREFIX[g.type]
     preset = PRESETS[g.type].with_levels(**levels)
     # Offsets come from the group's own stream: (seed, 2, group index); clock noise uses (0, i).
@@ -445,13 +444,21 @@ def _anomaly_from_table(table: Mapping[str, Any], key: str, path):
         raise ConfigError(f"unknown anomaly kind {kind!r}", key=f"{key}.kind", value=kind,
                           allowed=", ".join(ANOMALY_KINDS), path=path)
     cls = ANOMALY_KINDS[kind]
-    anomaly = build_section(cls, table, key, path)
     required = [f.name for f in dataclasses.fields(cls)
                 if f.name in ("clock", "day", "size_s", "size", "size_per_day", "duration_days")
                 and not (kind == "gap" and f.name == "clock")
                 and not (kind == "noise_growth" and f.name == "day")]
+    return _build(cls, table, key, path, required=required, what=f" for kind '{kind}'")
+
+
+def _build(cls, table: Mapping[str, Any], key: str, path, required=(), extra=(), what=""):
+    """build_section with the required keys enforced and every allowed key listed."""
+    known = [f.name for f in dataclasses.fields(cls)] + list(extra)
+    for name in table:
+        if name not in known:
+            raise ConfigError(f"unknown key{what}; known keys: {', '.join(known)}",
+                              key=f"{key}.{name}", value=table[name], path=path)
     for name in required:
         if name not in table:
-            raise ConfigError(f"missing key '{name}' for kind '{kind}'", key=f"{key}.{name}",
-                              path=path)
-    return anomaly
+            raise ConfigError(f"missing key '{name}'{what}", key=f"{key}.{name}", path=path)
+    return build_section(cls, table, key, path)
