@@ -144,7 +144,7 @@ def build_injection(scenario: Scenario, elapsed_s: np.ndarray, mjd: np.ndarray) 
                 gap[k0:k1, :] = True
             else:
                 gap[k0:k1, c] = True
-            end = mjd[k1] if k1 < n_t else mjd[-1] + scenario.tau0_s / SECONDS_PER_DAY
+            end = float(mjd[k1] if k1 < n_t else mjd[-1] + scenario.tau0_s / SECONDS_PER_DAY)
             events.append(Event(a.kind, a.clock, float(mjd[k0]), (k1 - k0) * scenario.tau0_s
                                 / SECONDS_PER_DAY, "d", end_mjd=end, epoch=k0))
         elif a.kind == "join":
