@@ -371,5 +371,5 @@ def _same_shape(value, like: np.ndarray, name: str, one_d: bool, positive: bool)
     if bad.any():
         p, k = np.argwhere(bad)[0]
         need = "> 0" if positive else ">= 0"
-        raise ValueError(f"{name}[{p}, {k}] = {arr[p, k]!r}; expected a finite value {need}")
+        raise ValueError(f"{name}[{p}, {k}] = {float(arr[p, k])!r}; expected a finite value {need}")
     return arr
