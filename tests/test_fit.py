@@ -301,6 +301,10 @@ def test_separation_negative_estimate_warns_and_is_zeroed():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         separate_clock_noise(pairs, TAU_S, curves, 20.0, terms=("q1", "q2"), warn=False)
+    bad = curves.copy()
+    bad[2, :-1] = np.nan
+    with pytest.raises(ValueError, match=r"pair 2 \('B', 'C'\): 1 usable points cannot"):
+        separate_clock_noise(pairs, TAU_S, bad, 20.0, terms=("q1", "q2"))
 
 
 def test_separation_of_simulated_clocks():

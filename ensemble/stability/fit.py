@@ -233,7 +233,7 @@ def fit_noise(tau_s, variance, edf, *, kind: str = "hadamard",
     terms, without scaling by chi2 / dof (the weights are absolute, from the EDF).  It treats
     the points as independent; octave-spaced overlapping variances of one record are not quite
     (neighbour correlations of 0.2-0.45 in a seeded white PM + white FM + RW FM simulation), and
-    there it understated the spread of q1 by 15 % and of q2 by 25-30 %.  Pass a
+    there it understated the spread of q1 by 10-16 % and of q2 by 24-31 %.  Pass a
     ``point_covariance`` for honest uncertainties.
     """
     if kind not in _KINDS:
@@ -335,8 +335,14 @@ def separate_clock_noise(pairs: Sequence[tuple[Hashable, Hashable]], tau_s, pair
     covs = [None] * len(pairs) if pair_point_covariance is None else pair_point_covariance
     if len(covs) != len(pairs):
         raise ValueError(f"pair_point_covariance must hold one matrix per pair ({len(pairs)})")
-    fits = tuple(fit_noise(tau_s, s[p], nu[p], kind=kind, terms=terms, flicker=flicker,
-                           point_covariance=covs[p]) for p in range(len(pairs)))
+    fits = []
+    for p, pair in enumerate(pairs):
+        try:
+            fits.append(fit_noise(tau_s, s[p], nu[p], kind=kind, terms=terms, flicker=flicker,
+                                  point_covariance=covs[p]))
+        except ValueError as exc:
+            raise ValueError(f"pair {p} {tuple(pair)!r}: {exc}") from exc
+    fits = tuple(fits)
     fitted_terms = fits[0].terms
     cols = [TERM_NAMES.index(t) for t in fitted_terms]
     values = np.array([_values_of(f)[cols] for f in fits])          # (n_pairs, n_terms)
