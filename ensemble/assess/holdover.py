@@ -28,7 +28,8 @@ from ..model.clockmodel import ClockNoise
 __all__ = ["TimeErrorPrediction", "predict_time_error", "holdover_time", "DEFAULT_HORIZON_S",
            "K_95"]
 
-#: Coverage factor of a two-sided 95 % normal interval (common practice; scipy.stats.norm.ppf(0.975)).
+#: Coverage factor of a two-sided 95 % normal interval, scipy.stats.norm.ppf(0.975) (common
+#: practice).
 K_95 = 1.959963984540054
 #: Default search horizon of :func:`holdover_time`: ten years of 365.25 days. [s]
 DEFAULT_HORIZON_S = 10 * 365.25 * 86400.0

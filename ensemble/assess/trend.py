@@ -269,11 +269,12 @@ def _inputs(t_s, values, std, kind):
             raise ValueError(f"{label}[{int(np.flatnonzero(bad)[0])}] is not finite")
     if np.any(np.diff(t) <= 0):
         k = int(np.flatnonzero(np.diff(t) <= 0)[0]) + 1
-        raise ValueError(f"t_s must be strictly increasing; t_s[{k}] = {float(t[k])!r} follows {float(t[k - 1])!r}")
+        raise ValueError(f"t_s must be strictly increasing; t_s[{k}] = {float(t[k])!r} "
+                         f"follows {float(t[k - 1])!r}")
     if kind == "level" and np.any(v <= 0):
         k = int(np.flatnonzero(v <= 0)[0])
-        raise ValueError(f"values[{k}] = {float(v[k])!r}; a level must be > 0 (use kind='drift' for a "
-                         f"quantity that can change sign)")
+        raise ValueError(f"values[{k}] = {float(v[k])!r}; a level must be > 0 "
+                         f"(use kind='drift' for a quantity that can change sign)")
     u = None
     if std is not None:
         u = np.asarray(std, dtype=float).ravel()

@@ -177,7 +177,8 @@ def model_variance(tau_s, noise: ClockNoise, flicker_h_minus1: float = 0.0,
     """
     tau = np.asarray(tau_s, dtype=float)
     if kind == "allan" and noise.q3_per_s3 > 0:
-        raise ValueError("random-run FM (q3 > 0) has no stationary Allan variance; use kind='hadamard'")
+        raise ValueError("random-run FM (q3 > 0) has no stationary Allan variance; "
+                         "use kind='hadamard'")
     values = np.array([noise.r_s2, noise.q1_s, noise.q2_per_s, noise.q3_per_s3, flicker_h_minus1])
     cols = _design(tau.ravel(), kind, TERM_NAMES if kind == "hadamard" else
                    ("r", "q1", "q2", "flicker"))
@@ -242,7 +243,8 @@ def fit_noise(tau_s, variance, edf, *, kind: str = "hadamard",
     tau = np.asarray(tau_s, dtype=float).ravel()
     s = np.asarray(variance, dtype=float).ravel()
     if tau.shape != s.shape:
-        raise ValueError(f"tau_s and variance must have the same length, got {tau.size} and {s.size}")
+        raise ValueError(f"tau_s and variance must have the same length, got {tau.size} "
+                         f"and {s.size}")
     nu = np.broadcast_to(np.asarray(edf, dtype=float), s.shape).astype(float)
     _validate_points(tau, s, nu)
     keep = ~np.isnan(s)
@@ -330,7 +332,8 @@ def separate_clock_noise(pairs: Sequence[tuple[Hashable, Hashable]], tau_s, pair
     """
     s = np.asarray(pair_variance, dtype=float)
     if s.ndim != 2 or s.shape[0] != len(pairs):
-        raise ValueError(f"pair_variance must have shape (n_pairs={len(pairs)}, n_tau), got {s.shape}")
+        raise ValueError(f"pair_variance must have shape (n_pairs={len(pairs)}, n_tau), "
+                         f"got {s.shape}")
     nu = np.broadcast_to(np.asarray(pair_edf, dtype=float), s.shape)
     covs = [None] * len(pairs) if pair_point_covariance is None else pair_point_covariance
     if len(covs) != len(pairs):
@@ -426,7 +429,8 @@ def simulate_variance_points(noise: ClockNoise, tau0_s: float, n_samples: int, m
     if n_realisations < len(ms) + 2:
         raise ValueError(f"n_realisations = {n_realisations} is too small for {len(ms)} points")
     if kind == "allan" and noise.q3_per_s3 > 0:
-        raise ValueError("random-run FM (q3 > 0) has no stationary Allan variance; use kind='hadamard'")
+        raise ValueError("random-run FM (q3 > 0) has no stationary Allan variance; "
+                         "use kind='hadamard'")
     ms = ms.astype(int)
     tau0 = float(tau0_s)
     rng = np.random.default_rng(seed)
@@ -536,7 +540,8 @@ def _point_covariance(point_covariance, keep: np.ndarray):
         return None
     c = np.asarray(point_covariance, dtype=float)
     if c.shape != (keep.size, keep.size):
-        raise ValueError(f"point_covariance must have shape {(keep.size, keep.size)}, got {c.shape}")
+        raise ValueError(f"point_covariance must have shape {(keep.size, keep.size)}, "
+                         f"got {c.shape}")
     c = c[np.ix_(keep, keep)]
     if not np.all(np.isfinite(c)) or np.any(np.diag(c) <= 0):
         raise ValueError("point_covariance must be finite with a positive diagonal")

@@ -10,7 +10,8 @@ parameters q1, q2, q3, r of the clock model).  Three clocks (Gray & Allan 1974):
 N clocks with every pair measured (closed form, equal to least squares over all pairs; primer
 f.2)::
 
-    sigma_i^2 = [ sum_{j != i} sigma_ij^2 - S_tot / (N - 1) ] / (N - 2),   S_tot = sum_{j<k} sigma_jk^2
+    sigma_i^2 = [ sum_{j != i} sigma_ij^2 - S_tot / (N - 1) ] / (N - 2),
+    S_tot = sum_{j<k} sigma_jk^2
 
 With pairs missing or with different weights the estimate is the weighted least-squares solution
 of A sigma^2 = s, A[p, i] = 1 for the two clocks of pair p.
@@ -215,7 +216,8 @@ def n_cornered_hat(pair_variance, pairs: Sequence[tuple[Hashable, Hashable]], *,
     one_d = s.ndim == 1
     s2 = s[:, None] if one_d else s
     if s2.ndim != 2:
-        raise ValueError(f"pair_variance must have shape (n_pairs,) or (n_pairs, n_tau), got {s.shape}")
+        raise ValueError(f"pair_variance must have shape (n_pairs,) or (n_pairs, n_tau), "
+                         f"got {s.shape}")
     design, clocks = hat_design_matrix(pairs, clocks)
     n_pairs, n_clocks = design.shape
     if s2.shape[0] != n_pairs:
@@ -223,7 +225,8 @@ def n_cornered_hat(pair_variance, pairs: Sequence[tuple[Hashable, Hashable]], *,
     if n_clocks < 3:
         raise ValueError(f"the hat needs at least 3 clocks, got {n_clocks}")
     if correlation not in ("shared-clock", "independent"):
-        raise ValueError(f"correlation must be 'shared-clock' or 'independent', got {correlation!r}")
+        raise ValueError(f"correlation must be 'shared-clock' or 'independent', "
+                         f"got {correlation!r}")
 
     edf = _same_shape(pair_edf, s2, "pair_edf", one_d, positive=True)
     std = _same_shape(pair_std, s2, "pair_std", one_d, positive=False)

@@ -87,7 +87,8 @@ def tie(phase_s, n: int) -> np.ndarray:
     return x[n:] - x[:-n]
 
 
-def tie_rms(phase_s, tau0_s: float, n=None, *, remove_frequency: bool = False) -> TimeErrorStatistic:
+def tie_rms(phase_s, tau0_s: float, n=None, *,
+            remove_frequency: bool = False) -> TimeErrorStatistic:
     """Root-mean-square TIE over all start times, at each observation interval.
 
     Parameters
