@@ -1,0 +1,1 @@
+"""Clock assessment: holdover prediction, trend tests and the evidence behind verdicts."""
