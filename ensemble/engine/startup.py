@@ -1,0 +1,251 @@
+"""Internal: start-up of the ensemble from the first stretch of data.
+
+For clocks whose noise levels the configuration does not give:
+
+1. overlapping Hadamard variances of every pair difference (or of each clock against a few
+   anchor clocks in large ensembles) at octave averaging times over the initial stretch;
+2. a non-negative weighted fit of (r, q1, q2) to each pair's curve and the N-cornered hat to
+   separate them per clock (:func:`ensemble.stability.fit.separate_clock_noise`).  Fitted over
+   the averaging times where the filter runs, the q's are *effective* levels that also carry
+   the flicker FM the model cannot represent (primer c.6, f.1);
+3. initial phase, frequency and drift of each clock relative to the first epoch's reference,
+   from a polynomial fit over the same stretch, with covariances from the noise levels.
+
+Configured values, then the clock type's typical levels, replace estimates the data cannot
+support (negative, or not enough data).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..model.clockmodel import ClockNoise
+from ..units import SECONDS_PER_DAY
+from .settings import ClockSettings, EnsembleSettings
+from .timescale import ClockSetup
+
+#: Pairs per clock when the ensemble is too large for all pairs.
+_ANCHORS = 8
+#: Smallest channel white PM variance accepted [s^2] (0.1 ps rms): keeps S positive definite.
+_R_FLOOR_S2 = 1e-26
+#: Typical frequency and drift uncertainty when a clock's type is unknown: 1e-11, 1e-13/d.
+_FREQ_PRIOR = 1e-11
+_DRIFT_PRIOR_PER_S = 1e-13 / SECONDS_PER_DAY
+
+
+@dataclass(frozen=True)
+class StartupReport:
+    """What the start-up found, per clock (for the run summary and the archive)."""
+
+    clocks: tuple
+    source: tuple          # "config", "estimated", "type", "default" per clock
+    noise: tuple           # ClockNoise per clock
+    stretch_days: float
+    messages: tuple
+
+
+def _preset(kind: str):
+    if kind == "auto":
+        return None
+    from ..model.presets import get_preset
+    return get_preset(kind)
+
+
+def _octaves(n_points: int) -> np.ndarray:
+    m_max = max(1, (n_points - 1) // 12)
+    return 2 ** np.arange(int(math.log2(m_max)) + 1)
+
+
+def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
+                   clock_names) -> tuple[dict, list]:
+    """Per-clock ClockNoise from the pairwise Hadamard variances over a stretch.
+
+    Parameters
+    ----------
+    phase_s : ndarray, shape (n_epochs, n_clocks)
+        Clock - reference over the stretch [s], NaN where missing.
+    tau0_s : float
+        Sampling interval [s].
+    members : ndarray of bool, shape (n_clocks,)
+        Clocks to estimate.
+    clock_names : sequence of str
+
+    Returns
+    -------
+    (dict column -> ClockNoise or None, list of messages)
+    """
+    from ..stability.deviations import overlapping_avar_hvar
+    from ..stability.edf import edf_greenhall
+    from ..stability.fit import separate_clock_noise
+    from ..stability.hat import NegativeVarianceWarning
+
+    idx = np.flatnonzero(members)
+    messages: list[str] = []
+    if idx.size < 3:
+        return {int(i): None for i in idx}, ["fewer than three clocks: noise levels not "
+                                             "separable, typical levels used"]
+    t = phase_s.shape[0]
+    avail = np.isfinite(phase_s[:, idx]).mean(axis=0)
+    order = idx[np.argsort(-avail, kind="stable")]
+    if idx.size <= 2 * _ANCHORS:
+        pairs = [(int(a), int(b)) for k, a in enumerate(idx) for b in idx[k + 1:]]
+    else:
+        anchors = order[:_ANCHORS]
+        pairs = sorted({tuple(sorted((int(a), int(b)))) for a in anchors for b in idx if a != b})
+    m = _octaves(t)
+    diff = np.stack([phase_s[:, a] - phase_s[:, b] for a, b in pairs], axis=1)
+    ov = overlapping_avar_hvar(diff, tau0_s, m)
+    hvar = np.asarray(ov.hvar).T                       # (n_pairs, n_m)
+    nterm = np.asarray(ov.n_hvar).T
+    edf = np.full(hvar.shape, np.nan)
+    cache: dict = {}
+    for (p, j), n in np.ndenumerate(nterm):
+        if n < 2:
+            continue
+        key = (int(m[j]), int(n))
+        if key not in cache:
+            cache[key] = edf_greenhall(0, int(m[j]), int(n), order=3, overlapping=True)
+        edf[p, j] = cache[key]
+    ok = np.isfinite(hvar) & (hvar > 0) & np.isfinite(edf)
+    hvar = np.where(ok, hvar, np.nan)
+    edf = np.where(ok, edf, 1.0)
+    labels = [clock_names[i] for i in idx]
+    name_pairs = [(clock_names[a], clock_names[b]) for a, b in pairs]
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", NegativeVarianceWarning)
+        sep = separate_clock_noise(name_pairs, ov.tau_s, hvar, edf, clocks=labels,
+                                   kind="hadamard", terms=("r", "q1", "q2"), warn=True)
+    for w in caught:
+        messages.append(str(w.message))
+    messages.extend(sep.messages)
+    out = {}
+    for k, i in enumerate(idx):
+        nz = sep.noise[k]
+        bad = bool(np.any(sep.negative[k])) if np.ndim(sep.negative) else bool(sep.negative)
+        out[int(i)] = None if (bad or nz.q1_s <= 0) else nz
+    return out, messages
+
+
+def _fit_state(x: np.ndarray, t_s: np.ndarray, drift: bool):
+    """Polynomial fit of a difference series: (phase at t=0, frequency, drift), residual rms."""
+    ok = np.isfinite(x)
+    if ok.sum() < 3:
+        return None
+    tt, xx = t_s[ok], x[ok]
+    span = tt.max() - tt.min()
+    deg = 2 if (drift and span >= 3 * SECONDS_PER_DAY and ok.sum() >= 10) else 1
+    scale = max(span, 1.0)
+    coef = np.polynomial.polynomial.polyfit(tt / scale, xx, deg)
+    freq = coef[1] / scale
+    drift_per_s = 2.0 * coef[2] / scale ** 2 if deg == 2 else 0.0
+    return coef[0], freq, drift_per_s, span
+
+
+def build_setups(phase_s: np.ndarray, elapsed_s: np.ndarray, reference: np.ndarray,
+                 tau0_s: float, clocks, clock_settings: dict, ensemble: EnsembleSettings):
+    """ClockSetup for every clock, from the configuration and the initial stretch.
+
+    Parameters
+    ----------
+    phase_s : ndarray, shape (n_epochs, n_clocks)
+        Measurements (clock - reference) [s]; only the first ``startup_days`` are used.
+    elapsed_s : ndarray, shape (n_epochs,)
+    reference : ndarray of int, shape (n_epochs,)
+    tau0_s : float
+    clocks : sequence of str
+    clock_settings : mapping name -> ClockSettings
+    ensemble : EnsembleSettings
+
+    Returns
+    -------
+    (list of ClockSetup, StartupReport)
+    """
+    n = len(clocks)
+    settings = [clock_settings.get(c, ClockSettings()) for c in clocks]
+    monitor = np.array([s.role == "monitor" for s in settings])
+    rows = elapsed_s - elapsed_s[0] <= ensemble.startup_days * SECONDS_PER_DAY
+    stretch = phase_s[rows]
+    t = elapsed_s[rows] - elapsed_s[0]
+    stretch_days = float(t[-1] / SECONDS_PER_DAY) if t.size else 0.0
+    present = np.isfinite(stretch).mean(axis=0) >= 0.25
+    need = np.array([any(math.isnan(getattr(s, k)) for k in ("q1_s", "q2_per_s", "r_s2"))
+                     for s in settings])
+    estimates, messages = ({}, [])
+    to_estimate = present & ~monitor
+    if (need & to_estimate).any():
+        estimates, messages = estimate_noise(stretch, tau0_s, to_estimate, clocks)
+    setups, sources, noises = [], [], []
+    anchor = int(reference[0])
+    span_s = max(float(t[-1]) if t.size else tau0_s, tau0_s)
+    for i, (name, s) in enumerate(zip(clocks, settings)):
+        preset = _preset(s.type)
+        drift = ensemble.drift_states if s.drift_state == "default" else s.drift_state == "yes"
+        est = estimates.get(i)
+        typical = preset.clock_noise() if preset is not None else None
+        base = est or typical
+        source = "estimated" if est is not None else ("type" if typical is not None else "default")
+        if base is None:
+            base = ClockNoise(q1_s=1e-22, q2_per_s=1e-32, q3_per_s3=0.0, r_s2=(1e-11) ** 2)
+        values = {}
+        for key in ("q1_s", "q2_per_s", "q3_per_s3", "r_s2"):
+            given = getattr(s, key)
+            values[key] = given if not math.isnan(given) else getattr(base, key)
+        if all(not math.isnan(getattr(s, k)) for k in ("q1_s", "q2_per_s", "r_s2")):
+            source = "config"
+        values["r_s2"] = max(values["r_s2"], _R_FLOOR_S2)
+        values["q1_s"] = max(values["q1_s"], _R_FLOOR_S2 / tau0_s)
+        # a random-walk FM level of zero would freeze the frequency estimate: keep the
+        # white-FM / random-walk-FM crossover within the stretch at the latest
+        values["q2_per_s"] = max(values["q2_per_s"], values["q1_s"] / span_s ** 2)
+        if not drift:
+            values["q3_per_s3"] = 0.0
+        noise = ClockNoise(**values)
+        freq_prior = _FREQ_PRIOR if preset is None else max(preset.frequency_offset, 1e-15)
+        drift_prior = (_DRIFT_PRIOR_PER_S if preset is None
+                       else max(preset.drift_per_day, 1e-18) / SECONDS_PER_DAY)
+        setup = ClockSetup(noise, drift_state=drift, monitor=bool(monitor[i]),
+                           frequency_prior=10 * freq_prior, drift_prior_per_s=10 * drift_prior)
+        setups.append(setup)
+        sources.append("monitor" if monitor[i] else source)
+        noises.append(noise)
+    _initial_states(setups, stretch, t, anchor)
+    report = StartupReport(tuple(clocks), tuple(sources), tuple(noises), stretch_days,
+                           tuple(messages))
+    return setups, report
+
+
+def _initial_states(setups, stretch, t, anchor) -> None:
+    """Initial (phase, frequency, drift) of each clock relative to the anchor clock."""
+    if not t.size:
+        return
+    z0 = stretch[0]
+    span = max(float(t[-1]), 1.0)
+    q_anchor = setups[anchor].noise
+    for i, s in enumerate(setups):
+        if s.monitor or not np.isfinite(z0[i]):
+            continue
+        if i == anchor:
+            s.initial_state = np.zeros(3)
+            s.initial_cov = np.diag([s.noise.r_s2, 0.0, 0.0])
+            continue
+        x = stretch[:, i] - stretch[:, anchor]
+        fit = _fit_state(x, t, s.drift_state)
+        if fit is None:
+            continue
+        _, freq, drift, fspan = fit
+        fspan = max(fspan, 1.0)
+        q1 = s.noise.q1_s + q_anchor.q1_s
+        q2 = s.noise.q2_per_s + q_anchor.q2_per_s
+        # slope of a random-walk phase over T: variance 6 q1 / (5 T); frequency wander q2 T / 3
+        p_yy = 4.0 * (1.2 * q1 / fspan + q2 * fspan / 3.0)
+        p_dd = 4.0 * (720.0 * q1 / fspan ** 3 + 12.0 * q2 / fspan) if s.drift_state else 0.0
+        if not s.drift_state or fspan < 3 * SECONDS_PER_DAY:
+            drift = 0.0
+            p_dd = s.drift_prior_per_s ** 2 if s.drift_state else 0.0
+        s.initial_state = np.array([z0[i] - z0[anchor], freq, drift])
+        s.initial_cov = np.diag([s.noise.r_s2 + setups[anchor].noise.r_s2, p_yy, p_dd])
+    del span
