@@ -151,8 +151,8 @@ def test_bad_config_exit_2(archive, tmp_path, capsys):
 
 def test_simulate_writes_plot_and_commands(tmp_path, capsys):
     scenario = tmp_path / "s.toml"
-    text = (CONFIG_DIR / "steering_examples.toml").read_text().replace("days = 90.0", "days = 15.0")
-    scenario.write_text(text)
+    text = (CONFIG_DIR / "steering_examples.toml").read_text()
+    scenario.write_text(text + "\n[simulation]\ndays = 15.0\n")
     png, out = tmp_path / "loop.png", tmp_path / "c.csv"
     code = cli.main(["steer", "--simulate", str(scenario), "--plot", str(png), "-o", str(out),
                      "--units", "ps/s"])

@@ -1,5 +1,7 @@
 """Closed-loop simulation: convergence on a simulated maser, limits, modes, external target."""
 
+import tomllib
+
 import numpy as np
 import pytest
 
@@ -145,9 +147,12 @@ def test_projection_is_noise_free_closed_loop():
 
 
 def test_example_scenario_loads_and_bad_scenarios_name_the_key(tmp_path):
-    setup = load_simulation(str(CONFIG_DIR / "steering_examples.toml"))
-    assert setup.simulation.days == 90.0 and setup.reference is None
-    assert setup.steering.policy == "critical"
+    # the example is a valid run configuration (only [steering]) and a default scenario
+    example = CONFIG_DIR / "steering_examples.toml"
+    assert set(tomllib.loads(example.read_text())) == {"steering"}
+    setup = load_simulation(str(example))
+    assert setup.simulation == SimulationSettings() and setup.reference is None
+    assert setup.steering == SteeringSettings()
     bad = tmp_path / "bad.toml"
     bad.write_text("[simulation.master]\nq1 = 1e-26\n")
     with pytest.raises(ConfigError, match=r"simulation\.master\.q1.*known keys"):

@@ -311,3 +311,47 @@ def test_defaults_and_steered_clock():
     g_x, g_y = critical_gains(DAY, 10 * DAY)
     ctl = SteeringController(s)
     assert (ctl.g_x, ctl.g_y) == (g_x, g_y)
+
+
+def test_anti_windup_no_memory_of_clipped_amounts():
+    # Invariant (anti-windup): every proposal is the policy on the current estimate alone, and
+    # the virtual synthesizer integrates only the applied (clipped) changes.
+    settings = SteeringSettings(anchor="first-epoch", settle_d=0.0, time_constant_d=3.0,
+                                max_step=1e-15, max_total=4e-15)
+    ctl = SteeringController(settings)
+    x, y, tau = 50e-9, 0.0, DAY
+    steer = 0.0
+    total = 0.0
+    kinds = set()
+    for k in range(60):
+        r = ctl.step(MJD0 + k, tau, (x, y, 0.0))
+        kinds.add(r.clipped)
+        if k:
+            steer += total * tau
+        assert ctl.steer_phase_s == pytest.approx(steer, rel=1e-12, abs=1e-24)
+        expected = -(ctl.g_x * (x + steer) + ctl.g_y * (y + total))
+        assert r.proposed_correction == pytest.approx(expected, rel=1e-12, abs=1e-30)
+        total += r.frequency_correction
+        assert r.total_correction == pytest.approx(total, rel=1e-12, abs=1e-30)
+    assert any(c & 1 for c in kinds) and any(c & 2 for c in kinds)   # both limits bound
+    assert abs(total) <= settings.max_total
+
+
+def test_docstring_example():
+    import doctest
+
+    import ensemble.steering.controller as module
+    assert doctest.testmod(module).failed == 0
+
+
+def test_changed_interval_between_runs_starts_at_pending_command():
+    first = SteeringController(SteeringSettings(anchor="first-epoch", settle_d=0.0))
+    for k in range(30):                                   # hourly epochs, daily commands
+        first.step(MJD0 + k / 24, 3600.0, (1e-9, 0.0))
+    assert first.state_dict()["next_command_mjd"] == MJD0 + 2.0
+    new = SteeringSettings(anchor="first-epoch", settle_d=0.0, interval_d=0.5,
+                           time_constant_d=5.0)
+    second = SteeringController.from_state(first.state_dict(), settings=new)
+    recs = [second.step(MJD0 + k / 24, 3600.0, (1e-9, 0.0)) for k in range(30, 72)]
+    assert [r.mjd for r in recs if r.command_epoch] == pytest.approx(
+        [MJD0 + 2.0, MJD0 + 2.5], rel=0, abs=1e-9)

@@ -43,7 +43,7 @@ SIMULATED_EXTERNAL = "<simulated>"
 class SimulationSettings:
     """``[simulation]``: length, epoch spacing and seed of a closed-loop run."""
 
-    days: float = setting(60.0, unit="d", minimum=0.0, exclusive_minimum=True, maximum=3650.0,
+    days: float = setting(90.0, unit="d", minimum=0.0, exclusive_minimum=True, maximum=3650.0,
                           doc="length of the simulated run")
     step_h: float = setting(1.0, unit="h", minimum=1.0 / 60.0, maximum=744.0,
                             doc="spacing of the measurement epochs (the engine's epochs)")
@@ -60,7 +60,7 @@ class MasterTruth:
 
     q1_s: float = setting(4e-28, unit="s", minimum=0.0, maximum=1e-18,
                           doc="white-FM diffusion coefficient")
-    q2_per_s: float = setting(1e-36, unit="1/s", minimum=0.0, maximum=1e-26,
+    q2_per_s: float = setting(1e-37, unit="1/s", minimum=0.0, maximum=1e-26,
                               doc="random-walk-FM diffusion coefficient")
     q3_per_s3: float = setting(0.0, unit="1/s^3", minimum=0.0, maximum=1e-40,
                                doc="random-run-FM diffusion coefficient")

@@ -199,20 +199,26 @@ class SteeringController:
         self.total_correction = float(settings.initial_total_correction)
         self.steer_phase_s = 0.0
         self._last_mjd: float | None = None
+        # Command epochs are origin + index * interval (no accumulated rounding).
+        self._origin_mjd: float | None = None
+        self._index = 0
         self._next_mjd: float | None = None
         self._start_mjd: float | None = None
         self._last_command_mjd: float | None = None
 
     # -- schedule ---------------------------------------------------------------------------
-    def _first_boundary(self, mjd: float) -> float:
+    def _anchor_schedule(self, mjd: float) -> None:
+        """Set the boundaries origin + n * interval and the first one at or after ``mjd``."""
         s = self.settings
         if s.anchor == "first-epoch":
-            return mjd
-        origin = math.floor(mjd) + s.time_of_day_h / 24.0
-        if origin > mjd + MJD_TOLERANCE_D:
-            origin -= 1.0
-        n = math.ceil((mjd - origin - MJD_TOLERANCE_D) / s.interval_d)
-        return origin + max(n, 0) * s.interval_d
+            self._origin_mjd, self._index = mjd, 0
+        else:
+            origin = math.floor(mjd) + s.time_of_day_h / 24.0
+            if origin > mjd + MJD_TOLERANCE_D:
+                origin -= 1.0
+            n = math.ceil((mjd - origin - MJD_TOLERANCE_D) / s.interval_d)
+            self._origin_mjd, self._index = origin, max(n, 0)
+        self._next_mjd = self._origin_mjd + self._index * s.interval_d
 
     # -- the per-epoch call -----------------------------------------------------------------
     def step(self, mjd: float, dt_s: float, state, covariance=None,
@@ -246,7 +252,7 @@ class SteeringController:
             if self._start_mjd is None:
                 self._start_mjd = mjd
             if self._next_mjd is None:
-                self._next_mjd = self._first_boundary(mjd)
+                self._anchor_schedule(mjd)
         else:
             if not mjd > self._last_mjd:
                 raise ValueError(f"steering epochs must increase: {mjd!r} after {self._last_mjd!r}")
@@ -290,8 +296,8 @@ class SteeringController:
 
         is_command = mjd >= self._next_mjd - MJD_TOLERANCE_D
         if is_command:
-            k = math.floor((mjd - self._next_mjd + MJD_TOLERANCE_D) / s.interval_d) + 1
-            self._next_mjd += k * s.interval_d
+            self._index += math.floor((mjd - self._next_mjd + MJD_TOLERANCE_D) / s.interval_d) + 1
+            self._next_mjd = self._origin_mjd + self._index * s.interval_d
 
         proposed = math.nan
         u = 0.0
@@ -353,8 +359,9 @@ class SteeringController:
 
         Keys: ``format``, ``settings`` (the [steering] table), ``total_correction`` [1],
         ``steer_phase_s`` [s] (accumulated phase of the virtual synthesizer), ``last_mjd``,
-        ``next_command_mjd``, ``start_mjd``, ``last_command_mjd`` [d] and ``external`` (the
-        flywheel filter state or None).
+        ``next_command_mjd``, ``schedule_origin_mjd`` [d] and ``schedule_index`` (command
+        epochs are origin + index * interval), ``start_mjd``, ``last_command_mjd`` [d] and
+        ``external`` (the flywheel filter state or None).
         """
         return {
             "format": STATE_FORMAT,
@@ -363,6 +370,8 @@ class SteeringController:
             "steer_phase_s": self.steer_phase_s,
             "last_mjd": self._last_mjd,
             "next_command_mjd": self._next_mjd,
+            "schedule_origin_mjd": self._origin_mjd,
+            "schedule_index": self._index,
             "start_mjd": self._start_mjd,
             "last_command_mjd": self._last_command_mjd,
             "external": None if self._flywheel is None else self._flywheel.state_dict(),
@@ -394,6 +403,12 @@ class SteeringController:
         ctl.steer_phase_s = float(state["steer_phase_s"])
         ctl._last_mjd = _opt_float(state["last_mjd"])
         ctl._next_mjd = _opt_float(state["next_command_mjd"])
+        ctl._origin_mjd = _opt_float(state["schedule_origin_mjd"])
+        ctl._index = int(state["schedule_index"])
+        old_interval = state["settings"].get("interval_d", SteeringSettings().interval_d)
+        if ctl._next_mjd is not None and float(old_interval) != settings.interval_d:
+            # A new interval starts its boundaries at the pending command epoch.
+            ctl._origin_mjd, ctl._index = ctl._next_mjd, 0
         ctl._start_mjd = _opt_float(state["start_mjd"])
         ctl._last_command_mjd = _opt_float(state["last_command_mjd"])
         if ctl._flywheel is not None and state.get("external") is not None:
