@@ -96,8 +96,13 @@ def parse_config(table: Mapping[str, Any], source: str = "") -> Config:
         if key not in known:
             raise ConfigError(f"unknown table; known tables: {', '.join(known)}", key=key,
                               path=path)
-    sections = {name: build_section(cls, table.get(name), name, path)
-                for name, cls in classes.items()}
+    sections = {}
+    for name, cls in classes.items():
+        if name == "steering":
+            from .steering.settings import steering_settings_from_table
+            sections[name] = steering_settings_from_table(table.get(name), path=path)
+        else:
+            sections[name] = build_section(cls, table.get(name), name, path)
     clocks_table = table.get("clocks", {})
     if not isinstance(clocks_table, Mapping):
         raise ConfigError("expected tables [clocks.NAME]", key="clocks", path=path)

@@ -95,7 +95,8 @@ class ClockSetup:
 class Event:
     """A detected anomaly (one /events row).
 
-    ``magnitude``: s for outlier and phase_step, 1 for frequency_step, 1/d for drift_change.
+    ``magnitude`` (SI): s for outlier and phase_step, 1 for frequency_step, 1/s for
+    drift_change; ``uncertainty`` its standard uncertainty in the same unit.
     """
 
     mjd: float
@@ -573,11 +574,7 @@ class TimeScaleEngine:
         """A windowed-GLR alarm: absorb the detected jump into the clock's state."""
         rel = np.abs(correction / size) if size != 0 else np.zeros(3)
         self.filter.correct(i, correction, (rel * unc) ** 2 + (0.25 * correction) ** 2)
-        magnitude, uncertainty = size, unc
-        if kind == "drift_change":
-            magnitude, uncertainty = size * SECONDS_PER_DAY, unc * SECONDS_PER_DAY
-        self.events.append(Event(onset_mjd, self.clocks[i], kind, magnitude, stat, self.mjd,
-                                 uncertainty))
+        self.events.append(Event(onset_mjd, self.clocks[i], kind, size, stat, self.mjd, unc))
         self.slow.reset(i)
         self._exclude(i, self.t, relearn=True)
 

@@ -1,0 +1,283 @@
+"""Orchestration of a run: measurements -> start-up -> ensemble epoch by epoch -> steering ->
+archive.  No formulas live here; each step calls the module that owns it.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import os
+import pathlib
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .config import Config, load_config
+from .engine.startup import StartupReport, build_setups
+from .engine.timescale import STATE_NAMES, TimeScaleEngine
+from .errors import ConfigError
+from .io.measurements import Measurements
+
+#: Epochs per block handed to the archive writer (bounds memory for long runs).
+BLOCK_EPOCHS = 1024
+
+
+@dataclass
+class RunResult:
+    """Everything a run produced (SI units; arrays (n_epochs, n_clocks) in ``clocks`` order).
+
+    Attributes
+    ----------
+    clocks : tuple of str
+    mjd : ndarray (T,)
+        Epochs, MJD UTC. [d]
+    offset_s, frequency, drift_per_s, weight, state : ndarray (T, N) or None
+        Clock - scale [s]; frequency [1] and drift [1/s] relative to the scale; weights [1];
+        standing codes (``STATE_NAMES``).  None when the run kept no arrays in memory.
+    zscore : ndarray (T, N) or None
+        Standardised prediction residual of each clock (relative to the other clean clocks).
+    scale_sigma_s : ndarray (T,) or None
+        Estimated standard deviation of each step of the scale. [s]
+    events : list of Event
+    steering : dict of column arrays (see ensemble.steering.output.STEERING_COLUMNS)
+    startup : StartupReport
+    archive : str or None
+        Archive written, if any.
+    """
+
+    clocks: tuple
+    mjd: np.ndarray
+    offset_s: np.ndarray | None
+    frequency: np.ndarray | None
+    drift_per_s: np.ndarray | None
+    weight: np.ndarray | None
+    state: np.ndarray | None
+    zscore: np.ndarray | None
+    scale_sigma_s: np.ndarray | None
+    events: list
+    steering: dict
+    startup: StartupReport
+    archive: str | None = None
+    final_weight: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    final_state: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int8))
+
+    def frame(self, name: str):
+        """One (T, N) array as a pandas DataFrame indexed by MJD with clock columns."""
+        import pandas as pd
+
+        data = getattr(self, name)
+        if data is None:
+            raise ValueError(f"{name} was not kept in memory (read it from the archive)")
+        return pd.DataFrame(data, index=pd.Index(self.mjd, name="mjd"), columns=list(self.clocks))
+
+    def events_frame(self):
+        """The detected events as a DataFrame (magnitude in SI units)."""
+        import pandas as pd
+
+        return pd.DataFrame([dataclasses.asdict(e) for e in self.events],
+                            columns=["mjd", "clock", "kind", "magnitude", "score",
+                                     "detected_mjd", "uncertainty"])
+
+    def steering_frame(self):
+        """The steering table as a DataFrame."""
+        import pandas as pd
+
+        return pd.DataFrame(self.steering)
+
+
+def _prepare_roles(meas: Measurements, cfg: Config) -> dict:
+    """Per-clock settings, with the measured steered output forced to the monitor role."""
+    clocks = {name: cfg.clock(name) for name in meas.clocks}
+    for name in cfg.clocks:
+        if name not in clocks:
+            raise ConfigError(f"clock '{name}' does not appear in the measurements "
+                              f"(known: {', '.join(meas.clocks)})", key=f"clocks.{name}",
+                              path=cfg.source or None)
+    st = cfg.sections.get("steering")
+    if st is not None and st.output == "measured":
+        if st.output_channel not in clocks:
+            raise ConfigError(f"output channel '{st.output_channel}' is not in the measurements",
+                              key="steering.output_channel", value=st.output_channel,
+                              path=cfg.source or None)
+        clocks[st.output_channel] = dataclasses.replace(clocks[st.output_channel], role="monitor")
+    if st is not None and st.master_clock and st.master_clock not in clocks:
+        raise ConfigError(f"master clock '{st.master_clock}' is not in the measurements",
+                          key="steering.master_clock", value=st.master_clock,
+                          path=cfg.source or None)
+    return clocks
+
+
+class _Steering:
+    """The steering controller fed from the engine's estimates each epoch."""
+
+    def __init__(self, cfg: Config, meas: Measurements, engine: TimeScaleEngine):
+        from .steering import SteeringController
+
+        self.settings = cfg.steering
+        first_ref = meas.clocks[int(meas.reference[0])]
+        name = self.settings.steered_clock(first_ref)
+        self.index = meas.clocks.index(name)
+        self.clock = name
+        self.engine = engine
+        self.controller = SteeringController(self.settings, noise=engine.noise[self.index])
+        self.records = []
+        self.last_t = None
+
+    def step(self, t_s: float, mjd: float, out: dict) -> None:
+        i = self.index
+        state = (out["offset"][i], out["frequency"][i], out["drift"][i])
+        cov = self.engine.filter.cov_si(i) if self.engine.filter.active[i] else None
+        dt = 0.0 if self.last_t is None else t_s - self.last_t
+        self.last_t = t_s
+        self.records.append(self.controller.step(mjd, dt, state, cov,
+                                                 noise=self.engine.noise[i]))
+
+    def take(self):
+        from .steering.output import records_to_columns
+
+        records, self.records = self.records, []
+        return records_to_columns(records) if records else None
+
+
+def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
+                    keep: bool = True, progress: bool = False) -> RunResult:
+    """Run the ensemble over all epochs of ``meas``.
+
+    Parameters
+    ----------
+    meas : Measurements
+    cfg : Config, optional
+        Defaults when omitted.
+    sink : callable, optional
+        Called with (block dict, steering columns or None) every :data:`BLOCK_EPOCHS` epochs
+        and at the end; block keys as :meth:`ensemble.archive.ArchiveWriter.append_epochs`
+        expects them.
+    keep : bool
+        Keep every epoch's arrays in memory for the result (False: only blocks to ``sink``).
+    progress : bool
+        Show a progress bar (only when stderr is a terminal).
+
+    Returns
+    -------
+    RunResult
+    """
+    cfg = cfg if cfg is not None else load_config(None)
+    clocks_cfg = _prepare_roles(meas, cfg)
+    setups, report = build_setups(meas.phase_s, meas.elapsed_s, meas.reference, meas.tau0_s,
+                                  meas.clocks, clocks_cfg, cfg.ensemble)
+    engine = TimeScaleEngine(meas.clocks, meas.tau0_s, setups, cfg.ensemble, cfg.detection)
+    steering = _Steering(cfg, meas, engine) if "steering" in cfg.sections else None
+    t_n, n = meas.n_epochs, meas.n_clocks
+    keys = ("offset", "frequency", "drift", "weight", "state", "zscore")
+    kept = {k: np.empty((t_n, n), dtype=np.int8 if k == "state" else float) for k in keys} \
+        if keep else None
+    sigma = np.empty(t_n) if keep else None
+    block = _new_block(BLOCK_EPOCHS, n)
+    b = 0
+    bar = _progress(t_n, progress)
+    out = None
+    for k in range(t_n):
+        out = engine.step(float(meas.elapsed_s[k]), float(meas.mjd[k]), meas.phase_s[k],
+                          int(meas.reference[k]))
+        if steering is not None:
+            steering.step(float(meas.elapsed_s[k]), float(meas.mjd[k]), out)
+        if keep:
+            for key in keys:
+                kept[key][k] = out[key]
+            sigma[k] = out["scale_sigma"]
+        if sink is not None:
+            _fill(block, b, float(meas.mjd[k]), out)
+            b += 1
+            if b == BLOCK_EPOCHS:
+                cols = steering.take() if steering else None
+                sink(block, cols)
+                block = _new_block(BLOCK_EPOCHS, n)
+                b = 0
+        if bar is not None and k % 256 == 0:
+            bar.update(min(256, t_n - k))
+    if bar is not None:
+        bar.close()
+    steer_parts = []
+    if sink is not None and (b or steering is not None):
+        sink({key: value[:b] for key, value in block.items()},
+             steering.take() if steering else None)
+    elif steering is not None:
+        steer_parts.append(steering.take())
+    steer_cols = _concat(steer_parts)
+    result = RunResult(meas.clocks, meas.mjd.copy(),
+                       kept["offset"] if keep else None, kept["frequency"] if keep else None,
+                       kept["drift"] if keep else None, kept["weight"] if keep else None,
+                       kept["state"] if keep else None, kept["zscore"] if keep else None,
+                       sigma, list(engine.events), steer_cols, report)
+    if out is not None:
+        result.final_weight = out["weight"].copy()
+        result.final_state = out["state"].copy()
+    result.engine = engine
+    result.steering_clock = steering.clock if steering is not None else None
+    return result
+
+
+def _concat(parts: list) -> dict:
+    parts = [p for p in parts if p]
+    if not parts:
+        return {}
+    return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+
+
+def _new_block(size: int, n: int) -> dict:
+    return {"mjd": np.empty(size), "offset_s": np.empty((size, n)),
+            "frequency": np.empty((size, n)), "drift_per_s": np.empty((size, n)),
+            "weight": np.empty((size, n)), "state": np.empty((size, n), dtype=np.int8),
+            "scale_uncertainty_s": np.empty(size), "innovation": np.empty((size, n))}
+
+
+def _fill(block: dict, b: int, mjd: float, out: dict) -> None:
+    block["mjd"][b] = mjd
+    block["offset_s"][b] = out["offset"]
+    block["frequency"][b] = out["frequency"]
+    block["drift_per_s"][b] = out["drift"]
+    block["weight"][b] = out["weight"]
+    block["state"][b] = out["state"]
+    block["scale_uncertainty_s"][b] = out["scale_sigma"]
+    block["innovation"][b] = out["zscore"]
+
+
+def _progress(total: int, wanted: bool):
+    import sys
+
+    if not wanted or not sys.stderr.isatty():
+        return None
+    from tqdm import tqdm
+    return tqdm(total=total, unit="epoch", leave=False, file=sys.stderr)
+
+
+def summary_text(result: RunResult) -> str:
+    """A short human summary of a run: clocks with weights and standings, events, scale noise."""
+    lines = []
+    t = result.mjd
+    lines.append(f"epochs: {t.size} from MJD {t[0]:.4f} to {t[-1]:.4f}")
+    if result.final_weight.size:
+        lines.append("clock        standing     weight now  noise levels (q1 s, q2 1/s) source")
+        for i, c in enumerate(result.clocks):
+            nz = result.startup.noise[i]
+            lines.append(f"  {c:<10} {STATE_NAMES[int(result.final_state[i])]:<12} "
+                         f"{result.final_weight[i]:9.4f}   {nz.q1_s:.2e} {nz.q2_per_s:.2e}  "
+                         f"{result.startup.source[i]}")
+    lines.append(f"events: {len(result.events)}")
+    for e in result.events[:20]:
+        unit = {"outlier": "s", "phase_step": "s", "frequency_step": "", "drift_change": "/s"}
+        lines.append(f"  MJD {e.mjd:.4f}  {e.clock:<10} {e.kind:<15} "
+                     f"{e.magnitude:+.3e}{unit.get(e.kind, '')}  score {e.score:.1f}")
+    if len(result.events) > 20:
+        lines.append(f"  ... and {len(result.events) - 20} more (see /events)")
+    if result.scale_sigma_s is not None and result.scale_sigma_s.size:
+        lines.append(f"scale step uncertainty now: {result.scale_sigma_s[-1] * 1e12:.2f} ps "
+                     f"per {_interval_text(result)}")
+    return "\n".join(lines)
+
+
+def _interval_text(result: RunResult) -> str:
+    if result.mjd.size < 2:
+        return "epoch"
+    dt = float(np.median(np.diff(result.mjd))) * 86400.0
+    return f"{dt:g} s"
