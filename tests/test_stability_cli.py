@@ -236,3 +236,19 @@ def test_table_errors():
         stability_table(np.arange(20.0), 1.0, "oadev", taus=[2.5])
     with pytest.raises(InputError, match="needs at least 18 phase values"):
         stability_table(np.arange(10.0), 1.0, "mdev", taus=[6])
+
+
+def test_given_noise_type(capsys):
+    code, out, _ = run(capsys, "stability", SMALL, "--statistic", "ohdev", "--tau0", "1",
+                       "--input", "frequency", "--noise", "rrfm", "--json")
+    rows = json.loads(out)
+    assert code == 0 and {(r["alpha"], r["noise"]) for r in rows} == {(-4, "random-run FM")}
+    y, _ = read_values(str(SMALL))
+    expected = stability_table(y, 1.0, "ohdev", data="frequency", alpha=-4)
+    assert rows == [r.as_dict() for r in expected]
+    assert {r.noise_method for r in expected} == {"given"}
+    code, _, err = run(capsys, "stability", SMALL, "--statistic", "oadev", "--tau0", "1",
+                       "--input", "frequency", "--noise", "RRFM")
+    assert code == 2 and "from -2 to 2 for oadev" in err
+    with pytest.raises(InputError, match="integer from -2 to 2"):
+        stability_table(y, 1.0, "mdev", data="frequency", alpha=0.5)

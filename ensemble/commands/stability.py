@@ -60,6 +60,11 @@ def add_parser(sub, parents) -> None:
     p.add_argument("--confidence", default=None, metavar="P",
                    help="two-sided probability of the interval (default 0.6826894921, the "
                         "68.3 %% interval)")
+    p.add_argument("--noise", default="auto", type=str.upper,
+                   choices=("AUTO", "WPM", "FPM", "WFM", "FFM", "RWFM", "FWFM", "RRFM"),
+                   help="noise type for the EDF at every tau instead of identifying it per tau "
+                        "(white/flicker PM, white/flicker/random-walk FM; FWFM and RRFM with "
+                        "hdev/ohdev only); default auto")
     p.add_argument("--json", action="store_true",
                    help="print a JSON list of objects: tau, deviation, n, edf, lo, hi, "
                         "alpha, noise")
@@ -171,27 +176,35 @@ def _parse_float(text: str, option: str) -> float:
 # Output
 
 
+_METHOD_WORDS = {"lag1": "lag-1 autocorrelation", "b1": "B1 ratio",
+                 "b1+rn": "B1 ratio, PM split by MVAR/AVAR", "b1+r1": "B1 ratio, PM split by lag-1",
+                 "carried": "from a shorter tau", "default": "too few values: white FM assumed",
+                 "given": "set by --noise"}
+
+
 def format_table(rows, *, statistic: str, source: str, n_values: int, data: str,
                  tau0_s: float, confidence: float) -> str:
     """The human-readable table printed without --json."""
+    from ..stability.noiseid import NOISE_CODES, NOISE_NAMES
     from ..stability.plot import STATISTIC_LABELS
 
-    unit = " [s]" if statistic == "tdev" else ""
     pct = f"{100 * confidence:.1f} %"
-    head = [f"{statistic}: {STATISTIC_LABELS[statistic].replace(' [s]', '')}{unit}",
-            f"  {source}: {n_values} {data} values, tau0 = {tau0_s:g} s; "
-            f"{pct} interval from chi-squared with the EDF for the noise type",
-            ""]
+    lines = [f"{statistic}: {STATISTIC_LABELS[statistic]}",
+             f"  {source}: {n_values} {data} values, tau0 = {tau0_s:g} s",
+             f"  low, high: {pct} confidence interval (chi-squared with the EDF of the noise "
+             "type at each tau)",
+             ""]
     cols = (f"{'tau [s]':>12}  {'deviation':>12}  {'low':>11}  {'high':>11}  "
             f"{'terms':>8}  {'EDF':>9}  noise")
-    lines = head + [cols, "-" * len(cols + '  RWFM b1+rn')]
+    lines += [cols, "-" * (len(cols) + 8)]
     for r in rows:
         lines.append(f"{r.tau_s:>12.6g}  {r.deviation:>12.5e}  {r.lo:>11.4e}  {r.hi:>11.4e}  "
                      f"{r.n:>8d}  {r.edf:>9.2f}  {r.noise_code:<4} {r.noise_method}")
+    alphas = sorted({r.alpha for r in rows}, reverse=True)
+    methods = list(dict.fromkeys(r.noise_method for r in rows))
     lines.append("")
-    lines.append("noise: WPM/FPM white/flicker PM, WFM/FFM white/flicker FM, RWFM random-walk "
-                 "FM (how: lag1 autocorrelation, b1 ratio, rn = MVAR/AVAR split, carried "
-                 "from a shorter tau)")
+    lines.append("noise: " + ", ".join(f"{NOISE_CODES[a]} {NOISE_NAMES[a]}" for a in alphas)
+                 + "; found by " + ", ".join(f"{k}: {_METHOD_WORDS[k]}" for k in methods))
     return "\n".join(lines)
 
 
@@ -208,10 +221,15 @@ def main(args: argparse.Namespace) -> int:
     confidence = CONFIDENCE_68
     if args.confidence is not None:
         confidence = check_confidence(_parse_float(args.confidence, "--confidence"))
+    from ..stability.noiseid import NOISE_CODES
+
+    alpha = None
+    if args.noise != "AUTO":
+        alpha = {code: a for a, code in NOISE_CODES.items()}[args.noise]
     values, _ = read_values(args.input)
     try:
         rows = stability_table(values, tau0, args.statistic, data=args.data, taus=taus,
-                               confidence=confidence)
+                               confidence=confidence, alpha=alpha)
     except InputError as exc:
         raise InputError(exc.reason, path=args.input) from None
     if args.plot:

@@ -325,8 +325,21 @@ def resolve_factors(m, n_points: int, statistic: str) -> np.ndarray:
 # --------------------------------------------------------------------------------------------
 # Differences with gap bookkeeping
 
-#: Coefficients of the d-th difference at lag m (points i, i+m, ..., i+dm).
-_BINOMIAL = {2: (1.0, -2.0, 1.0), 3: (-1.0, 3.0, -3.0, 1.0)}
+def _difference_terms(x: np.ndarray, order: int, m: int, n_terms: int) -> np.ndarray:
+    """terms[i] = sum_k c_k x[i + k m], i < n_terms, for order 2 or 3 (few temporaries).
+
+    The same arithmetic for 1-D and 2-D (time on axis 0) arrays.
+    """
+    if order == 2:                                   # x_{i+2m} - 2 x_{i+m} + x_i
+        t = np.add(x[2 * m:2 * m + n_terms], x[:n_terms])
+        mid = np.multiply(x[m:m + n_terms], 2.0)
+        t -= mid
+        return t
+    t = np.subtract(x[3 * m:3 * m + n_terms], x[:n_terms])   # x_{i+3m} - 3 x_{i+2m} ...
+    mid = np.subtract(x[m:m + n_terms], x[2 * m:2 * m + n_terms])
+    mid *= 3.0
+    t += mid
+    return t
 
 
 def _differences(series: _Series, order: int, m: int):
@@ -335,12 +348,8 @@ def _differences(series: _Series, order: int, m: int):
     Returns ``(terms, valid)``: terms[i] = sum_k c_k x_{i+km} for i = 0 .. N-1-order*m (0 where
     invalid), ``valid`` a boolean array or None when every term is valid.
     """
-    x = series.x
     n_terms = series.n_points - order * m
-    coef = _BINOMIAL[order]
-    terms = coef[0] * x[:n_terms]
-    for k in range(1, order + 1):
-        terms = terms + coef[k] * x[k * m:k * m + n_terms]
+    terms = _difference_terms(series.x, order, m, n_terms)
     if series.bad is not None:
         bad = series.bad
         invalid = bad[:n_terms].copy()
@@ -370,15 +379,17 @@ def _window_sums(terms, valid, m: int):
     n_out = terms.size - m + 1
     if valid is None:
         centre = float(terms.mean())
-        dev = terms - centre
+        terms -= centre                      # in place: the caller's terms are not reused
     else:
         nv = int(np.count_nonzero(valid))
         centre = float(terms[valid].sum() / nv) if nv else 0.0
-        dev = np.where(valid, terms - centre, 0.0)
+        terms -= centre
+        terms[~valid] = 0.0
     c = np.empty(terms.size + 1)
     c[0] = 0.0
-    np.cumsum(dev, out=c[1:])
-    sums = (c[m:] - c[:n_out]) + m * centre
+    np.cumsum(terms, out=c[1:])
+    sums = np.subtract(c[m:], c[:n_out])
+    sums += m * centre
     if valid is None:
         return sums, None
     cinv = np.zeros(terms.size + 1, dtype=np.int64)
@@ -575,10 +586,7 @@ def overlapping_avar_hvar(phase_s, tau0_s: float, m: int | Sequence[int]) -> Ove
             nt = n_pts - order * mk
             if nt < 1:
                 continue
-            coef = _BINOMIAL[order]
-            t = coef[0] * x[:nt]
-            for j in range(1, order + 1):
-                t = t + coef[j] * x[j * mk:j * mk + nt]
+            t = _difference_terms(x, order, mk, nt)
             if gaps:
                 inv = bad[:nt].copy()
                 for j in range(1, order + 1):

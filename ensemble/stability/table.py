@@ -23,7 +23,7 @@ from ..errors import InputError
 from .confidence import CONFIDENCE_68, check_confidence, deviation_interval
 from .deviations import STATISTICS, max_factor, prepare, resolve_factors, variance_at
 from .edf import edf_for
-from .noiseid import NOISE_CODES, NOISE_NAMES, identify_prepared
+from .noiseid import NOISE_CODES, NOISE_NAMES, alpha_range, identify_prepared
 
 #: Relative tolerance for "tau is a multiple of tau0".
 _MULTIPLE_RTOL = 1e-9
@@ -53,7 +53,7 @@ class StabilityRow:
     m : int
         Averaging factor.
     noise_method : str
-        How alpha was found: 'lag1', 'b1', 'b1+rn', 'b1+r1', 'carried' or 'default'.
+        How alpha was found: 'lag1', 'b1', 'b1+rn', 'b1+r1', 'carried', 'default' or 'given'.
     """
 
     tau_s: float
@@ -131,7 +131,8 @@ def _noise_at(series, m, tau0, data, statistic, cache):
 
 
 def stability_table(values, tau0_s: float, statistic: str, *, data: str = "phase",
-                    taus="octave", confidence: float = CONFIDENCE_68) -> list[StabilityRow]:
+                    taus="octave", confidence: float = CONFIDENCE_68,
+                    alpha: int | None = None) -> list[StabilityRow]:
     """Stability table of one statistic: deviation, n, EDF, confidence interval, noise type.
 
     Parameters
@@ -150,6 +151,9 @@ def stability_table(values, tau0_s: float, statistic: str, *, data: str = "phase
         seconds (multiples of tau0), each of which must have at least one term.
     confidence : float
         Two-sided probability of the interval (default 0.6826894921, the 68.3 % interval).
+    alpha : int, optional
+        Use this power-law exponent (S_y(f) ~ f^alpha) at every tau instead of identifying the
+        noise ('given' in the rows); -2 .. 2, or -4 .. 2 for hdev and ohdev.
 
     Returns
     -------
@@ -173,6 +177,12 @@ def stability_table(values, tau0_s: float, statistic: str, *, data: str = "phase
         raise InputError(f"unknown statistic {statistic!r}; choose one of "
                          f"{', '.join(STATISTICS)}")
     conf = check_confidence(confidence)
+    if alpha is not None:
+        lo_a, hi_a = alpha_range(statistic)
+        if not isinstance(alpha, (int, np.integer)) or not lo_a <= alpha <= hi_a:
+            raise InputError(f"noise exponent alpha must be an integer from {lo_a} to {hi_a} "
+                             f"for {statistic}, got {alpha!r}")
+        alpha = int(alpha)
     series = prepare(values, tau0_s, data)
     tau0 = float(tau0_s)
     n_points = series.n_points
@@ -201,13 +211,16 @@ def stability_table(values, tau0_s: float, statistic: str, *, data: str = "phase
                 raise InputError(f"averaging time {m * tau0:g} s: every {statistic} term "
                                  "touches a missing value")
             continue
-        alpha, method = _noise_at(series, m, tau0, data, statistic, noise_cache)
-        edf = edf_for(statistic, alpha, m, n, n_points)
+        if alpha is None:
+            a, method = _noise_at(series, m, tau0, data, statistic, noise_cache)
+        else:
+            a, method = alpha, "given"
+        edf = edf_for(statistic, a, m, n, n_points)
         dev = math.sqrt(var)
         lo, hi = deviation_interval(dev, edf, conf)
         rows.append(StabilityRow(tau_s=m * tau0, deviation=dev, n=int(n), edf=float(edf),
-                                 lo=float(lo), hi=float(hi), alpha=int(alpha),
-                                 noise=NOISE_NAMES[alpha], m=m, noise_method=method))
+                                 lo=float(lo), hi=float(hi), alpha=int(a),
+                                 noise=NOISE_NAMES[a], m=m, noise_method=method))
     if not rows:
         raise InputError(f"too few values for {statistic}: the record has "
                          f"{_count(n_points, data)}; it needs at least "
