@@ -21,7 +21,7 @@ from . import __version__
 from .errors import EnsembleError
 
 #: Command modules in the order ``--help`` lists them.
-COMMANDS = ("run",)
+COMMANDS = ("run", "inspect")
 
 log = logging.getLogger("ensemble")
 
