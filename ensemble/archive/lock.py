@@ -54,6 +54,7 @@ class ArchiveLock:
     """
 
     def __init__(self, archive: str | os.PathLike):
+        self._fd: int | None = None
         self.archive = pathlib.Path(archive)
         self.path = lock_path(self.archive)
         try:
@@ -78,7 +79,7 @@ class ArchiveLock:
             os.close(fd)
             raise InputError(f"cannot lock '{self.path.name}' ({exc.strerror}); the file "
                              f"system must support flock", path=str(self.archive)) from None
-        self._fd: int | None = fd
+        self._fd = fd
         now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
         os.ftruncate(fd, 0)
         os.pwrite(fd, f"pid {os.getpid()} since {now}\n".encode(), 0)

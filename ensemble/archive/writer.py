@@ -50,6 +50,11 @@ _CHUNK_BYTES = 64 * 1024      # target size of one chunk [bytes]
 _CHUNK_CLOCKS = 16            # clocks per chunk of a (T, N) dataset
 _FLUSH_ROWS = 1024            # epochs buffered before they are written
 _WEIGHT_SUM_TOL = 1e-12       # |sum of a weight row - 1| allowed (contract: rows sum to 1)
+#: HDF5 settings of every archive file.  Object formats of HDF5 1.10 (so any HDF5 >= 1.10 reads
+#: the archive), and free-space tracking that persists between sessions: space freed when /state
+#: or a table tail is rewritten is reused by later runs instead of being lost at each close.
+_FILE_OPTIONS = {"libver": ("v110", "v110")}
+_CREATE_OPTIONS = {"fs_strategy": "fsm", "fs_persist": True, "fs_threshold": 1}
 _KEY_CHARS = set("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789_.-")
 _NEW = object()
 
@@ -241,7 +246,7 @@ class ArchiveWriter:
             lock.release()
             raise
         try:
-            h5 = h5py.File(tmp, "w")
+            h5 = h5py.File(tmp, "w", **_FILE_OPTIONS, **_CREATE_OPTIONS)
         except BaseException:
             output.__exit__(*sys.exc_info())
             lock.release()
@@ -290,6 +295,8 @@ class ArchiveWriter:
             if not path.is_file():
                 raise InputError("archive not found; create it with a first run, or check "
                                  "the path", path=str(path))
+            with open_h5(path, "r") as original:      # refuse a non-archive before copying
+                check_readable(original, str(path))
             lock.remove_stale_temporaries()
             t0 = time.perf_counter()
             output = atomic_output(path, copy_from=path)
@@ -299,7 +306,7 @@ class ArchiveWriter:
             lock.release()
             raise
         try:
-            h5 = open_h5(tmp, "r+", shown_as=path)
+            h5 = open_h5(tmp, "r+", shown_as=path, **_FILE_OPTIONS)
         except BaseException:
             output.__exit__(*sys.exc_info())
             lock.release()
@@ -678,7 +685,8 @@ class ArchiveWriter:
         self._require_open()
         if (not isinstance(path, str) or not path.startswith("/") or path == "/"
                 or any(path == p or path.startswith(p + "/") for p in schema.RESERVED_PATHS)):
-            raise ValueError(f"write_group: {path!r} is not a free group path")
+            raise ValueError(f"write_group: {path!r} is not a group path outside the groups "
+                             f"reserved by the format {list(schema.RESERVED_PATHS)}")
         parent, name = path.rsplit("/", 1)
         group = self._group(parent)
         if name in group:
@@ -743,7 +751,8 @@ class ArchiveWriter:
         if (not isinstance(path, str) or not path.startswith("/") or path.count("/") < 1
                 or any(path == p or path.startswith(p + "/")
                        for p in schema.RESERVED_PATHS + ("/state",))):
-            raise ValueError(f"write_table: {path!r} is not a free table path")
+            raise ValueError(f"write_table: {path!r} is not a table path outside the groups "
+                             f"reserved by the format")
         spec = TableSpec(path, tuple(fields), description)
         self._new_table(spec, rows_to_table(rows, spec, f"write_table {path}"))
 
@@ -863,7 +872,11 @@ class ArchiveWriter:
     def __exit__(self, exc_type, exc, tb) -> bool:
         if exc_type is None:
             if not self._done:
-                self.commit()
+                try:
+                    self.commit()
+                except BaseException:
+                    self.abort()
+                    raise
         else:
             self.abort()
         return False
