@@ -256,3 +256,18 @@ def test_an_exception_inside_the_writer_leaves_the_archive(tmp_path):
             raise RuntimeError("engine failed")
     assert path.read_bytes() == before
     assert temporaries(tmp_path) == [] and lock_is_free(path)
+
+
+def test_append_keeps_permissions_and_follows_a_symbolic_link(tmp_path):
+    real = tmp_path / "data" / "lab-2026.h5"
+    real.parent.mkdir()
+    run_writer(real, "create", 1, 1, 8)
+    os.chmod(real, 0o640)
+    link = tmp_path / "current.h5"
+    link.symlink_to(real)
+    run_writer(link, "append", 2, 1, 8)
+    assert link.is_symlink() and os.readlink(link) == str(real)
+    assert (real.stat().st_mode & 0o777) == 0o640
+    with open_archive(link) as a:
+        assert a.n_epochs == 16
+    assert (real.parent / "lab-2026.h5.lock").exists() and not (tmp_path / "current.h5.lock").exists()

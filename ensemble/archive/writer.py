@@ -30,6 +30,7 @@ import hashlib
 import json
 import os
 import pathlib
+import shutil
 import sys
 import time
 from collections.abc import Iterable, Mapping, Sequence
@@ -78,6 +79,12 @@ def _to_archive_units(spec: EpochDataset, values: np.ndarray) -> np.ndarray:
     if spec.to_archive == 1.0:
         return values
     return values * spec.to_archive
+
+
+def _target(path: str | os.PathLike) -> pathlib.Path:
+    """The file to replace: a symbolic link is followed, so the link keeps pointing at it."""
+    path = pathlib.Path(path)
+    return path.resolve() if path.is_symlink() else path
 
 
 def _chunks(dtype: str, per_clock: bool, n_clocks: int) -> tuple[int, ...]:
@@ -216,7 +223,7 @@ class ArchiveWriter:
             The archive exists (and not ``overwrite``), its folder is missing, or another
             writer holds its lock.
         """
-        path = pathlib.Path(path)
+        path = _target(path)
         names = _check_clock_names(clocks)
         if not names:
             raise ValueError("create: at least one clock is needed")
@@ -283,7 +290,7 @@ class ArchiveWriter:
         """
         from .verify import check_readable
 
-        path = pathlib.Path(path)
+        path = _target(path)
         root = dict(attrs or {})
         for key in ("format_version", "created_utc"):
             if key in root:
@@ -302,6 +309,11 @@ class ArchiveWriter:
             output = atomic_output(path, copy_from=path)
             tmp = output.__enter__()
             copy_s = time.perf_counter() - t0
+            try:
+                shutil.copymode(path, tmp)        # the new file keeps the archive's permissions
+            except BaseException:
+                output.__exit__(*sys.exc_info())
+                raise
         except BaseException:
             lock.release()
             raise
