@@ -110,7 +110,8 @@ def test_round_trip_several_runs_and_a_late_clock(tmp_path, n_clocks):
         drift = np.concatenate([_widen(b["drift_per_s"], n_clocks, schema.DRIFT) for b in written])
         assert bits(a.array("/scale/drift")).tobytes() == bits(drift * 86400.0).tobytes()
         unc = np.concatenate([b["filter/scale_uncertainty"] for b in written])
-        assert bits(a.frame("/filter/scale_uncertainty").to_numpy()).tobytes() == bits(unc).tobytes()
+        got_unc = a.frame("/filter/scale_uncertainty").to_numpy()
+        assert bits(got_unc).tobytes() == bits(unc).tobytes()
         # DataFrames: MJD index, clock columns.
         frame = a.offset
         assert list(frame.columns) == names
@@ -120,8 +121,8 @@ def test_round_trip_several_runs_and_a_late_clock(tmp_path, n_clocks):
         got_ev = a.events
         assert list(got_ev["mjd"]) == [events[i]["mjd"] for i in order]
         assert list(got_ev["kind"]) == [events[i]["kind"] for i in order]
-        want_mag = [events[i]["magnitude"] * (86400.0 if events[i]["kind"] == "drift_change" else 1.0)
-                    for i in order]
+        want_mag = [events[i]["magnitude"]
+                    * (86400.0 if events[i]["kind"] == "drift_change" else 1.0) for i in order]
         assert list(got_ev["magnitude"]) == want_mag
         got_st = a.steering
         assert bits(got_st["frequency_correction"].to_numpy()).tobytes() == bits(
@@ -200,7 +201,8 @@ def test_saved_state_round_trip_numeric_arrays_and_json_only(tmp_path):
         got = a.engine_state
         assert a.units["/state/x"] == "s" and a.units["/state/counts"] == "SI"
     for key in ("x", "flags", "counts", "zero_d"):
-        assert got[key].dtype == state[key].dtype and bits(got[key]).tobytes() == bits(state[key]).tobytes()
+        assert got[key].dtype == state[key].dtype
+        assert bits(got[key]).tobytes() == bits(state[key]).tobytes()
     assert got["scalar"] == 2.5e-14 and got["clocks"] == state["clocks"]
     assert got["names"] == ["C0", "C1"] and got["note"] == "é-ok" and got["none"] is None
     assert math.isnan(got["nan"])

@@ -270,4 +270,5 @@ def test_append_keeps_permissions_and_follows_a_symbolic_link(tmp_path):
     assert (real.stat().st_mode & 0o777) == 0o640
     with open_archive(link) as a:
         assert a.n_epochs == 16
-    assert (real.parent / "lab-2026.h5.lock").exists() and not (tmp_path / "current.h5.lock").exists()
+    assert (real.parent / "lab-2026.h5.lock").exists()
+    assert not (tmp_path / "current.h5.lock").exists()

@@ -25,8 +25,6 @@ _HEX64 = re.compile(r"^[0-9a-f]{64}$")
 _WEIGHT_SUM_TOL = 1e-12          # contract: each weight row sums to 1 (tolerance of the check)
 _ROWS_BYTES = 8 * 2 ** 20        # memory per slab when scanning (T, N) datasets [bytes]
 
-_TABLE_TYPES = {"f8": "f", "str": "S"}
-
 
 def _required_paths() -> list[str]:
     return ([d.path for d in schema.CONTRACT_EPOCH_DATASETS] + [schema.CLOCKS_PATH]
@@ -307,7 +305,7 @@ def _check_saved_state(f: h5py.File, out: list[str]) -> None:
     if "/state" not in f:
         return
     def visit(name, obj):
-        full = f"/state/{name}"
+        full = f"/state/{name}" if name else "/state"
         if isinstance(obj, h5py.Dataset):
             if obj.dtype.kind not in "biufc":
                 out.append(f"{full}: dtype {obj.dtype}; /state holds numeric arrays only")

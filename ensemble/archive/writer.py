@@ -121,7 +121,8 @@ def _check_declarations(decls: Iterable[EpochDataset]) -> list[EpochDataset]:
         if not d.path.startswith("/") or d.path.endswith("/") or "//" in d.path:
             raise ValueError(f"extra dataset path {d.path!r}: expected an absolute path like "
                              f"'/filter/scale_uncertainty'")
-        if any(d.path == p or d.path.startswith(p + "/") for p in schema.RESERVED_PATHS + ("/state",)):
+        reserved = schema.RESERVED_PATHS + ("/state",)
+        if any(d.path == p or d.path.startswith(p + "/") for p in reserved):
             raise ValueError(f"extra dataset {d.path}: the group is reserved by the format")
         if d.path in contract_paths or d.block_key in contract_keys:
             raise ValueError(f"extra dataset {d.path}: clashes with a contract dataset")
@@ -341,7 +342,8 @@ class ArchiveWriter:
         for i, part in enumerate(parts):
             if part not in group:
                 sub = group.create_group(part)
-                set_attr(sub, "description", schema.default_description("/" + "/".join(parts[:i + 1])))
+                here = "/" + "/".join(parts[:i + 1])
+                set_attr(sub, "description", schema.default_description(here))
             group = group[part]
         return group
 
@@ -399,21 +401,17 @@ class ArchiveWriter:
             set_attr(f, key, value)
         self._clocks = [c.decode() for c in f[schema.CLOCKS_PATH][...].tolist()]
         contract = {d.path: d for d in schema.CONTRACT_EPOCH_DATASETS}
+        for spec in schema.CONTRACT_EPOCH_DATASETS:          # present: check_readable
+            self._epoch[spec.block_key] = (spec, f[spec.path])
         found: list[h5py.Dataset] = []
         f.visititems(lambda name, obj: found.append(obj)
-                     if isinstance(obj, h5py.Dataset) and "dimensions" in obj.attrs else None)
-        found.sort(key=lambda ds: (ds.name not in contract,
-                                   list(contract).index(ds.name) if ds.name in contract else 0,
-                                   ds.name))
-        for ds in found:
-            dims = get_attr(ds, "dimensions")
-            spec = contract.get(ds.name)
-            if spec is None:
-                kind = ds.dtype.kind
-                spec = EpochDataset(ds.name, f"{kind}{ds.dtype.itemsize}", dims == "epoch,clock",
-                                    get_attr(ds, "units", ""), get_attr(ds, "description", ""),
-                                    fill=ds.fillvalue.item() if hasattr(ds.fillvalue, "item")
-                                    else ds.fillvalue)
+                     if isinstance(obj, h5py.Dataset) and "dimensions" in obj.attrs
+                     and obj.name not in contract else None)
+        for ds in sorted(found, key=lambda d: d.name):      # extra per-epoch datasets
+            spec = EpochDataset(ds.name, f"{ds.dtype.kind}{ds.dtype.itemsize}",
+                                get_attr(ds, "dimensions") == "epoch,clock",
+                                get_attr(ds, "units", ""), get_attr(ds, "description", ""),
+                                fill=np.asarray(ds.fillvalue).item())
             self._epoch[spec.block_key] = (spec, ds)
         mjd = f[schema.MJD.path]
         self._file_rows = mjd.shape[0]
@@ -508,8 +506,8 @@ class ArchiveWriter:
         arr = np.asarray(block[key])
         want = (n, len(self._clocks)) if spec.per_clock else (n,)
         if arr.shape != want:
-            raise ValueError(f"block['{key}']: shape {arr.shape}, expected {want} "
-                             f"(epochs{', clocks in writer.clocks order' if spec.per_clock else ''})")
+            axes = "epochs, clocks in writer.clocks order" if spec.per_clock else "epochs"
+            raise ValueError(f"block['{key}']: shape {arr.shape}, expected {want} ({axes})")
         target = np.dtype(spec.dtype)
         if target.kind == "f":
             if arr.dtype.kind not in "fiub":
@@ -810,7 +808,9 @@ class ArchiveWriter:
     def _write_run_record(self) -> None:
         run = self._run
         f = self._f
-        config = run["config_toml"] if run["config_toml"] is not None else get_attr(f, "config_toml", "")
+        config = run["config_toml"]
+        if config is None:
+            config = get_attr(f, "config_toml", "")
         row = {
             "time_utc": run["time_utc"],
             "software_version": get_attr(f, "software_version", __version__),

@@ -178,9 +178,10 @@ def render(s: dict) -> str:
                  f"{'frequency':>11} {'drift/d':>11}")
     for c in s["clocks"]:
         offset = None if c.get("offset_s") is None else c["offset_s"] * 1e9
-        lines.append(f"  {c['clock']:<12} {c['state'] or '-':<10} {_fmt(c['weight'], '7.4f')} "
-                     f"{_fmt(offset, '+9.3f', ' ns'):>12} {_fmt(c.get('frequency'), '+11.3e')} "
-                     f"{_fmt(c.get('drift_per_day'), '+11.3e')}")
+        lines.append(f"  {c['clock']:<12} {c['state'] or '-':<10} "
+                     f"{_fmt(c['weight'], '7.4f'):>7} {_fmt(offset, '+9.3f', ' ns'):>12} "
+                     f"{_fmt(c.get('frequency'), '+11.3e'):>11} "
+                     f"{_fmt(c.get('drift_per_day'), '+11.3e'):>11}")
     ev = s["events"]
     kinds = ", ".join(f"{k} {v}" for k, v in ev["by_kind"].items()) or "none"
     lines.append(f"events     {ev['count']} ({kinds})")
@@ -189,10 +190,11 @@ def render(s: dict) -> str:
                      f"magnitude {_fmt(e['magnitude'], '+.3e')}  score {_fmt(e['score'], '.1f')}")
     st = s["steering"]
     if st["count"]:
+        error_ns = None if st["phase_error_s"] is None else st["phase_error_s"] * 1e9
         lines.append(f"steering   last command {st['last_utc']} (MJD {st['last_mjd']:.6f}): "
-                     f"{st['frequency_correction']:+.3e}; total {st['total_frequency_correction']:+.3e} "
-                     f"over {st['count']} commands; phase error "
-                     f"{_fmt(None if st['phase_error_s'] is None else st['phase_error_s'] * 1e9, '+.3f', ' ns')}")
+                     f"{_fmt(st['frequency_correction'], '+.3e')}; total "
+                     f"{_fmt(st['total_frequency_correction'], '+.3e')} over {st['count']} "
+                     f"commands; phase error {_fmt(error_ns, '+.3f', ' ns')}")
     else:
         lines.append("steering   no commands")
     lines.append(f"           ({st['caution']})")
@@ -200,7 +202,8 @@ def render(s: dict) -> str:
     lines.append(f"runs       {s['run_count']}{shown}")
     for r in s["runs"]:
         lines.append(f"  {r['time_utc']}  {r['mode']:<6} ensemble {r['software_version']:<8} "
-                     f"+{r['epochs_added']} epochs  {r['input_name']}  sha256 {r['input_sha256'][:12]}")
+                     f"+{r['epochs_added']} epochs  {r['input_name']}  "
+                     f"sha256 {r['input_sha256'][:12]}")
     if s["conformant"]:
         lines.append(f"verdict    conforms to archive format {s['format_version']}")
     else:
