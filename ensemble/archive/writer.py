@@ -25,9 +25,6 @@ Example
 
 from __future__ import annotations
 
-import datetime as _dt
-import hashlib
-import json
 import os
 import pathlib
 import shutil
@@ -42,43 +39,25 @@ from .. import __version__
 from ..atomic import atomic_output
 from ..errors import InputError
 from . import schema
-from .h5io import (get_attr, open_h5, rows_to_table, set_attr, set_json_attr,
-                   table_spec_from_dataset)
+from .content import ContentWriting
+from .h5io import open_h5, set_attr, table_spec_from_dataset
+from .layout import (block_values, check_clock_names, check_declarations, check_weights,
+                     ensure_group, epoch_datasets_in, merge_rows, new_epoch_dataset, new_table,
+                     to_archive_units, utc_now)
 from .lock import ArchiveLock
 from .schema import EpochDataset, TableField, TableSpec
 
-_CHUNK_BYTES = 64 * 1024      # target size of one chunk [bytes]
-_CHUNK_CLOCKS = 16            # clocks per chunk of a (T, N) dataset
 _FLUSH_ROWS = 1024            # epochs buffered before they are written
-_WEIGHT_SUM_TOL = 1e-12       # |sum of a weight row - 1| allowed (contract: rows sum to 1)
 #: HDF5 settings of every archive file.  Object formats of HDF5 1.10 (so any HDF5 >= 1.10 reads
 #: the archive), and free-space tracking that persists between sessions: space freed when /state
 #: or a table tail is rewritten is reused by later runs instead of being lost at each close.
 _FILE_OPTIONS = {"libver": ("v110", "v110")}
 _CREATE_OPTIONS = {"fs_strategy": "fsm", "fs_persist": True, "fs_threshold": 1}
-_KEY_CHARS = set("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789_.-")
 _NEW = object()
 
 
 class _Aborted(Exception):
     """Thrown into the atomic-output context to discard the temporary file."""
-
-
-def utc_now() -> str:
-    """The current time as ISO 8601 UTC with a ``Z`` suffix, to the second."""
-    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
-
-
-def _to_archive_units(spec: EpochDataset, values: np.ndarray) -> np.ndarray:
-    """The one place where a unit changes on the way into the archive.
-
-    Drift is SI inside the package [1/s] and per day in the archive [1/d]: values are multiplied
-    by ``spec.to_archive`` (86400 for ``/scale/drift``; 1 for every other dataset).  The
-    magnitude of ``drift_change`` events goes through here too.
-    """
-    if spec.to_archive == 1.0:
-        return values
-    return values * spec.to_archive
 
 
 def _target(path: str | os.PathLike) -> pathlib.Path:
@@ -87,69 +66,7 @@ def _target(path: str | os.PathLike) -> pathlib.Path:
     return path.resolve() if path.is_symlink() else path
 
 
-def _chunks(dtype: str, per_clock: bool, n_clocks: int) -> tuple[int, ...]:
-    itemsize = np.dtype(dtype).itemsize
-    cols = max(1, min(n_clocks, _CHUNK_CLOCKS)) if per_clock else 1
-    rows = 2 ** int(np.floor(np.log2(max(1, _CHUNK_BYTES // (itemsize * cols)))))
-    rows = int(min(8192, max(64, rows)))
-    return (rows, cols) if per_clock else (rows,)
-
-
-def _table_chunk(dtype: np.dtype) -> tuple[int]:
-    rows = 2 ** int(np.floor(np.log2(max(1, _CHUNK_BYTES // dtype.itemsize))))
-    return (int(min(1024, max(16, rows))),)
-
-
-def _check_clock_names(names: Iterable[str]) -> list[str]:
-    out: list[str] = []
-    for name in names:
-        if not isinstance(name, str) or not schema.CLOCK_NAME_RE.match(name):
-            raise ValueError(f"clock identifier {name!r}: expected 1 to 32 characters from "
-                             f"A-Z a-z 0-9 _ . -")
-        if name not in out:
-            out.append(name)
-    return out
-
-
-def _check_declarations(decls: Iterable[EpochDataset]) -> list[EpochDataset]:
-    contract_paths = {d.path for d in schema.CONTRACT_EPOCH_DATASETS}
-    contract_keys = {d.block_key for d in schema.CONTRACT_EPOCH_DATASETS}
-    out: list[EpochDataset] = []
-    for d in decls:
-        if not isinstance(d, EpochDataset):
-            raise TypeError(f"extra_epoch_datasets: expected EpochDataset, got {type(d).__name__}")
-        if not d.path.startswith("/") or d.path.endswith("/") or "//" in d.path:
-            raise ValueError(f"extra dataset path {d.path!r}: expected an absolute path like "
-                             f"'/filter/scale_uncertainty'")
-        reserved = schema.RESERVED_PATHS + ("/state",)
-        if any(d.path == p or d.path.startswith(p + "/") for p in reserved):
-            raise ValueError(f"extra dataset {d.path}: the group is reserved by the format")
-        if d.path in contract_paths or d.block_key in contract_keys:
-            raise ValueError(f"extra dataset {d.path}: clashes with a contract dataset")
-        if np.dtype(d.dtype).kind not in "fiu":
-            raise ValueError(f"extra dataset {d.path}: dtype {d.dtype!r} is not numeric")
-        if not d.units or not d.description or "\n" in d.description:
-            raise ValueError(f"extra dataset {d.path}: needs units and a one-line description")
-        if any(o.path == d.path or o.block_key == d.block_key for o in out):
-            raise ValueError(f"extra dataset {d.path}: declared twice")
-        out.append(d)
-    return out
-
-
-def _check_key(key, where: str) -> None:
-    if (not isinstance(key, str) or not key or key[0] == "." or not set(key) <= _KEY_CHARS
-            or key in schema.RESERVED_ATTRS):
-        raise ValueError(f"{where}: key {key!r} must be a non-empty name of A-Z a-z 0-9 _ . - "
-                         f"(not starting with '.', not one of {list(schema.RESERVED_ATTRS)})")
-
-
-def _json_default(value):
-    if isinstance(value, np.generic):
-        return value.item()
-    raise TypeError(f"{type(value).__name__} is not JSON-serialisable")
-
-
-class ArchiveWriter:
+class ArchiveWriter(ContentWriting):
     """The only way the package writes an archive.
 
     Obtain one with :meth:`create` or :meth:`open_for_append`; feed it blocks of epochs
@@ -225,41 +142,29 @@ class ArchiveWriter:
             writer holds its lock.
         """
         path = _target(path)
-        names = _check_clock_names(clocks)
+        names = check_clock_names(clocks)
         if not names:
             raise ValueError("create: at least one clock is needed")
         root = dict(attrs)
         for key in ("config_toml", "input_sha256"):
             if not isinstance(root.get(key), str):
                 raise ValueError(f"create: attrs['{key}'] (str) is required")
-        for key in ("format_version",):
-            if key in root:
-                raise ValueError(f"create: attrs['{key}'] is set by the writer")
+        if "format_version" in root:
+            raise ValueError("create: attrs['format_version'] is set by the writer")
         root.setdefault("software_version", __version__)
         root.setdefault("created_utc", utc_now())
-        extras = _check_declarations(extra_epoch_datasets)
+        extras = check_declarations(extra_epoch_datasets)
         events = schema.EVENTS.with_fields(tuple(extra_event_fields))
         steering = schema.STEERING.with_fields(tuple(steering_fields))
         for spec in (events, steering):
             spec.numpy_dtype()  # validates the field declarations before anything is written
-        lock = ArchiveLock(path)
-        try:
+
+        def refuse_existing() -> None:
             if path.exists() and not overwrite:
                 raise InputError("archive already exists; append to it, or choose another "
                                  "output file", path=str(path))
-            lock.remove_stale_temporaries()
-            output = atomic_output(path)
-            tmp = output.__enter__()
-        except BaseException:
-            lock.release()
-            raise
-        try:
-            h5 = h5py.File(tmp, "w", **_FILE_OPTIONS, **_CREATE_OPTIONS)
-        except BaseException:
-            output.__exit__(*sys.exc_info())
-            lock.release()
-            raise
-        writer = cls(_NEW, path, lock, output, tmp, h5, "create")
+
+        writer = cls._start(path, "create", refuse_existing)
         try:
             writer._build(names, root, extras, events, steering)
         except BaseException:
@@ -297,85 +202,56 @@ class ArchiveWriter:
             if key in root:
                 raise ValueError(f"open_for_append: attrs['{key}'] cannot change")
         root.setdefault("software_version", __version__)
-        extras = _check_declarations(extra_epoch_datasets)
-        lock = ArchiveLock(path)
-        try:
+        extras = check_declarations(extra_epoch_datasets)
+
+        def refuse_non_archive() -> None:
             if not path.is_file():
                 raise InputError("archive not found; create it with a first run, or check "
                                  "the path", path=str(path))
             with open_h5(path, "r") as original:      # refuse a non-archive before copying
                 check_readable(original, str(path))
-            lock.remove_stale_temporaries()
-            t0 = time.perf_counter()
-            output = atomic_output(path, copy_from=path)
-            tmp = output.__enter__()
-            copy_s = time.perf_counter() - t0
-            try:
-                shutil.copymode(path, tmp)        # the new file keeps the archive's permissions
-            except BaseException:
-                output.__exit__(*sys.exc_info())
-                raise
-        except BaseException:
-            lock.release()
-            raise
+
+        writer = cls._start(path, "append", refuse_non_archive)
         try:
-            h5 = open_h5(tmp, "r+", shown_as=path, **_FILE_OPTIONS)
-        except BaseException:
-            output.__exit__(*sys.exc_info())
-            lock.release()
-            raise
-        writer = cls(_NEW, path, lock, output, tmp, h5, "append")
-        writer.timings["copy_s"] = copy_s
-        try:
-            check_readable(h5, str(path))
             writer._load(root, extras)
         except BaseException:
             writer._discard()
             raise
         return writer
 
+    @classmethod
+    def _start(cls, path: pathlib.Path, mode: str, check) -> "ArchiveWriter":
+        """Lock, run ``check`` under the lock, remove stale temporaries, start the temporary
+        file (a byte copy of the archive when appending) and open it."""
+        lock = ArchiveLock(path)
+        output, entered = None, False
+        try:
+            check()
+            lock.remove_stale_temporaries()
+            t0 = time.perf_counter()
+            output = atomic_output(path, copy_from=path if mode == "append" else None)
+            tmp = output.__enter__()
+            entered = True
+            copy_s = time.perf_counter() - t0
+            if mode == "append":
+                shutil.copymode(path, tmp)      # the new file keeps the archive's permissions
+                h5 = open_h5(tmp, "r+", shown_as=path, **_FILE_OPTIONS)
+            else:
+                h5 = h5py.File(tmp, "w", **_FILE_OPTIONS, **_CREATE_OPTIONS)
+        except BaseException:
+            if entered:
+                output.__exit__(*sys.exc_info())   # removes the temporary file
+            lock.release()
+            raise
+        writer = cls(_NEW, path, lock, output, tmp, h5, mode)
+        if mode == "append":
+            writer.timings["copy_s"] = copy_s
+        return writer
+
     # ------------------------------------------------------------------ layout
-    def _group(self, path: str) -> h5py.Group:
-        """Create the groups of ``path`` (with descriptions) and return the deepest one."""
-        group = self._f["/"]
-        parts = [p for p in path.split("/") if p]
-        for i, part in enumerate(parts):
-            if part not in group:
-                sub = group.create_group(part)
-                here = "/" + "/".join(parts[:i + 1])
-                set_attr(sub, "description", schema.default_description(here))
-            group = group[part]
-        return group
-
     def _new_epoch_dataset(self, spec: EpochDataset, n_rows: int) -> h5py.Dataset:
-        parent, name = spec.path.rsplit("/", 1)
-        n = len(self._clocks)
-        shape = (n_rows, n) if spec.per_clock else (n_rows,)
-        ds = self._group(parent).create_dataset(
-            name, shape=shape, maxshape=(None,) * len(shape), dtype=spec.dtype,
-            chunks=_chunks(spec.dtype, spec.per_clock, n), fillvalue=spec.fill_value)
-        set_attr(ds, "units", spec.units)
-        set_attr(ds, "description", spec.description)
-        set_attr(ds, "dimensions", spec.dimensions)
-        if spec.path == schema.STATE.path:
-            set_json_attr(ds, "codes", {str(k): v for k, v in schema.STATE_CODES.items()})
+        ds = new_epoch_dataset(self._f, spec, n_rows, len(self._clocks))
         self._epoch[spec.block_key] = (spec, ds)
-        return ds
-
-    def _new_table(self, spec: TableSpec, data: np.ndarray | None = None) -> h5py.Dataset:
-        parent, name = spec.path.rsplit("/", 1)
-        group = self._group(parent)
-        if name in group:
-            del group[name]
-        dtype = spec.numpy_dtype()
-        n = 0 if data is None else len(data)
-        ds = group.create_dataset(name, shape=(n,), maxshape=(None,), dtype=dtype,
-                                  chunks=_table_chunk(dtype))
-        if n:
-            ds[...] = data
-        set_attr(ds, "description", spec.description)
-        set_json_attr(ds, "units", spec.units())
-        set_json_attr(ds, "field_descriptions", spec.field_descriptions())
         return ds
 
     def _build(self, clocks, root, extras, events, steering) -> None:
@@ -384,7 +260,7 @@ class ArchiveWriter:
         for key, value in root.items():
             set_attr(f, key, value)
         self._clocks = list(clocks)
-        names = self._group("/clocks").create_dataset(
+        names = ensure_group(f, "/clocks").create_dataset(
             "name", shape=(len(clocks),), maxshape=(None,),
             dtype=h5py.string_dtype("utf-8", schema.CLOCK_NAME_BYTES), chunks=(256,))
         names[...] = [c.encode() for c in clocks]
@@ -393,25 +269,14 @@ class ArchiveWriter:
         for spec in schema.CONTRACT_EPOCH_DATASETS + tuple(extras):
             self._new_epoch_dataset(spec, 0)
         for spec in (events, steering, schema.PROVENANCE):
-            self._tables[spec.path] = (spec, self._new_table(spec), [])
+            self._tables[spec.path] = (spec, new_table(f, spec), [])
 
     def _load(self, root, extras) -> None:
         f = self._f
         for key, value in root.items():
             set_attr(f, key, value)
         self._clocks = [c.decode() for c in f[schema.CLOCKS_PATH][...].tolist()]
-        contract = {d.path: d for d in schema.CONTRACT_EPOCH_DATASETS}
-        for spec in schema.CONTRACT_EPOCH_DATASETS:          # present: check_readable
-            self._epoch[spec.block_key] = (spec, f[spec.path])
-        found: list[h5py.Dataset] = []
-        f.visititems(lambda name, obj: found.append(obj)
-                     if isinstance(obj, h5py.Dataset) and "dimensions" in obj.attrs
-                     and obj.name not in contract else None)
-        for ds in sorted(found, key=lambda d: d.name):      # extra per-epoch datasets
-            spec = EpochDataset(ds.name, f"{ds.dtype.kind}{ds.dtype.itemsize}",
-                                get_attr(ds, "dimensions") == "epoch,clock",
-                                get_attr(ds, "units", ""), get_attr(ds, "description", ""),
-                                fill=np.asarray(ds.fillvalue).item())
+        for spec, ds in epoch_datasets_in(f):
             self._epoch[spec.block_key] = (spec, ds)
         mjd = f[schema.MJD.path]
         self._file_rows = mjd.shape[0]
@@ -438,7 +303,7 @@ class ArchiveWriter:
                 ds = f[base.path]
                 self._tables[base.path] = (table_spec_from_dataset(ds), ds, [])
             else:  # an archive written without provenance gets the table now
-                self._tables[base.path] = (base, self._new_table(base), [])
+                self._tables[base.path] = (base, new_table(f, base), [])
 
     # ------------------------------------------------------------------ properties
     @property
@@ -487,7 +352,7 @@ class ArchiveWriter:
             Column index of each name in :attr:`clocks`.
         """
         self._require_open()
-        names = _check_clock_names(names)
+        names = check_clock_names(names)
         new = [c for c in names if c not in self._clocks]
         if new:
             self._flush()
@@ -500,25 +365,6 @@ class ArchiveWriter:
                 if spec.per_clock:
                     data.resize((data.shape[0], n))
         return np.array([self._clocks.index(c) for c in names], dtype=np.intp)
-
-    def _take(self, block: Mapping, spec: EpochDataset, n: int) -> np.ndarray:
-        key = spec.block_key
-        arr = np.asarray(block[key])
-        want = (n, len(self._clocks)) if spec.per_clock else (n,)
-        if arr.shape != want:
-            axes = "epochs, clocks in writer.clocks order" if spec.per_clock else "epochs"
-            raise ValueError(f"block['{key}']: shape {arr.shape}, expected {want} ({axes})")
-        target = np.dtype(spec.dtype)
-        if target.kind == "f":
-            if arr.dtype.kind not in "fiub":
-                raise ValueError(f"block['{key}']: dtype {arr.dtype} is not numeric")
-            return _to_archive_units(spec, arr.astype(target))
-        if arr.dtype.kind not in "iub":
-            raise ValueError(f"block['{key}']: dtype {arr.dtype}, expected integers")
-        info = np.iinfo(target)
-        if arr.size and (arr.min() < info.min or arr.max() > info.max):
-            raise ValueError(f"block['{key}']: values outside the range of {spec.dtype}")
-        return arr.astype(target)
 
     def append_epochs(self, block: Mapping[str, np.ndarray]) -> None:
         """Append a block of consecutive epochs (rows) to every per-epoch dataset.
@@ -574,8 +420,10 @@ class ArchiveWriter:
                              f"{self._last_mjd:.6f} (the first new one is MJD {mjd[0]:.6f}); "
                              f"give only measurements after it, or write a new archive",
                              path=str(self.path))
-        rows = {spec.block_key: self._take(block, spec, n) for spec, _ in self._epoch.values()}
-        self._check_weights(rows["mjd"], rows["weight"], rows["state"])
+        n_clocks = len(self._clocks)
+        rows = {spec.block_key: to_archive_units(spec, block_values(block, spec, n, n_clocks))
+                for spec, _ in self._epoch.values()}
+        check_weights(rows["mjd"], rows["weight"], rows["state"], self._clocks)
         self._pending.append(rows)
         self._pending_rows += n
         self._epochs_added += n
@@ -584,32 +432,6 @@ class ArchiveWriter:
             self._first_new = float(mjd[0])
         if self._pending_rows >= _FLUSH_ROWS:
             self._flush()
-
-    def _check_weights(self, mjd: np.ndarray, weight: np.ndarray, state: np.ndarray) -> None:
-        codes = np.array(sorted(schema.STATE_CODES), dtype=state.dtype)
-        bad = ~np.isin(state, codes)
-        if bad.any():
-            i, j = np.argwhere(bad)[0]
-            raise ValueError(f"block['state'] at MJD {mjd[i]!r}, clock {self._clocks[j]}: "
-                             f"{state[i, j]} is not a state code {schema.STATE_CODES}")
-        bad = ~np.isfinite(weight) | (weight < 0)
-        if bad.any():
-            i, j = np.argwhere(bad)[0]
-            raise ValueError(f"block['weight'] at MJD {mjd[i]!r}, clock {self._clocks[j]}: "
-                             f"{weight[i, j]!r}; weights must be finite and >= 0")
-        bad = (weight > 0) & (state != schema.ACTIVE)
-        if bad.any():
-            i, j = np.argwhere(bad)[0]
-            raise ValueError(f"block['weight'] at MJD {mjd[i]!r}, clock {self._clocks[j]}: "
-                             f"weight {weight[i, j]!r} but state "
-                             f"{schema.STATE_CODES[int(state[i, j])]}; only active clocks "
-                             f"carry weight")
-        sums = weight.sum(axis=1)
-        bad = np.abs(sums - 1.0) > _WEIGHT_SUM_TOL
-        if bad.any():
-            i = int(np.argmax(bad))
-            raise ValueError(f"block['weight'] at MJD {mjd[i]!r}: the row sums to {sums[i]!r}; "
-                             f"each row must sum to 1 within {_WEIGHT_SUM_TOL:g}")
 
     def _flush(self) -> None:
         if not self._pending:
@@ -622,212 +444,6 @@ class ArchiveWriter:
         self._file_rows = stop
         self._pending.clear()
         self._pending_rows = 0
-
-    def _rows(self, path: str, rows, what: str) -> np.ndarray:
-        self._require_open()
-        data = rows_to_table(rows, self._tables[path][0], what)
-        if len(data) and not np.all(np.isfinite(data["mjd"])):
-            raise ValueError(f"{what}: mjd must be finite")
-        return data
-
-    def append_events(self, rows) -> None:
-        """Add detected events to ``/events`` (kept sorted by mjd on commit).
-
-        Parameters
-        ----------
-        rows : mapping of columns, or iterable of mappings
-            Fields ``mjd`` [d, MJD UTC], ``clock`` (a clock of :attr:`clocks`), ``kind``
-            (``outlier``, ``phase_step``, ``frequency_step``, ``drift_change`` or
-            ``reference_*``), ``magnitude`` in SI (phase kinds [s], ``frequency_step`` [1],
-            ``drift_change`` [1/s], stored per day [1/d]), ``score`` [1]; plus the declared
-            extra fields.
-        """
-        data = self._rows(schema.EVENTS.path, rows, "append_events")
-        kinds = [k.decode() for k in data["kind"].tolist()]
-        for kind in set(kinds):
-            if not schema.is_event_kind(kind):
-                raise ValueError(f"append_events: kind '{kind}' is not one of "
-                                 f"{list(schema.EVENT_KINDS)} or reference_*")
-        for clock in {c.decode() for c in data["clock"].tolist()}:
-            if clock not in self._clocks:
-                raise ValueError(f"append_events: clock '{clock}' is not in the archive; "
-                                 f"add_clocks() first")
-        drift = np.array([k == "drift_change" for k in kinds], dtype=bool)
-        if drift.any():
-            data["magnitude"][drift] = _to_archive_units(schema.DRIFT, data["magnitude"][drift])
-        self._tables[schema.EVENTS.path][2].append(data)
-
-    def append_steering(self, rows) -> None:
-        """Add steering rows to ``/steering`` (kept sorted by mjd on commit).
-
-        Parameters
-        ----------
-        rows : mapping of columns, or iterable of mappings
-            Fields ``mjd`` [d, MJD UTC], ``frequency_correction`` (commanded fractional
-            frequency change of the steered output, > 0 makes it run faster) [1],
-            ``phase_error`` (steered output - target) [s], plus the declared extra fields.
-        """
-        data = self._rows(schema.STEERING.path, rows, "append_steering")
-        self._tables[schema.STEERING.path][2].append(data)
-
-    def write_group(self, path: str, content: Mapping, *, units: Mapping[str, str] | None = None,
-                    descriptions: Mapping[str, str] | None = None,
-                    description: str | None = None) -> None:
-        """Replace the group ``path`` by ``content`` (numeric arrays and JSON values only).
-
-        Parameters
-        ----------
-        path : str
-            Absolute group path outside the contract groups, e.g. ``"/assessment"``.
-        content : mapping
-            name -> value.  A numpy array of bools or numbers becomes a dataset (exact dtype and
-            shape); a mapping becomes a subgroup; anything else must be JSON-serialisable
-            (str, int, float, bool, None, lists and dicts of those) and is stored as a JSON-text
-            attribute of the group.  Never pickled.  Names: A-Z a-z 0-9 _ . - only.
-        units : mapping, optional
-            Relative dataset path (``"name"`` or ``"sub/name"``) -> ``units`` attribute
-            (default ``"SI"``: the package's SI units).
-        descriptions : mapping, optional
-            Relative dataset path -> ``description`` attribute.
-        description : str, optional
-            Description of the group itself.
-        """
-        self._require_open()
-        if (not isinstance(path, str) or not path.startswith("/") or path == "/"
-                or any(path == p or path.startswith(p + "/") for p in schema.RESERVED_PATHS)):
-            raise ValueError(f"write_group: {path!r} is not a group path outside the groups "
-                             f"reserved by the format {list(schema.RESERVED_PATHS)}")
-        parent, name = path.rsplit("/", 1)
-        group = self._group(parent)
-        if name in group:
-            del group[name]
-        new = group.create_group(name, track_order=True)
-        set_attr(new, "description", description or schema.default_description(path))
-        self._write_tree(new, content, dict(units or {}), dict(descriptions or {}), "")
-
-    def _write_tree(self, group: h5py.Group, content: Mapping, units: dict, descriptions: dict,
-                    prefix: str) -> None:
-        where = group.name
-        for key, value in content.items():
-            _check_key(key, where)
-            rel = prefix + key
-            if isinstance(value, Mapping):
-                sub = group.create_group(key, track_order=True)
-                set_attr(sub, "description", f"saved values '{rel}'")
-                self._write_tree(sub, value, units, descriptions, rel + "/")
-            elif isinstance(value, np.ndarray):
-                if value.dtype.kind not in "biufc":
-                    raise ValueError(f"{where}/{key}: array dtype {value.dtype} is not numeric; "
-                                     f"store text as a JSON value (str or list) instead")
-                ds = group.create_dataset(key, data=value)
-                set_attr(ds, "units", units.get(rel, "SI"))
-                set_attr(ds, "description", descriptions.get(rel, f"saved array '{rel}'"))
-            else:
-                try:
-                    text = json.dumps(value, default=_json_default, ensure_ascii=False)
-                except (TypeError, ValueError) as exc:
-                    raise ValueError(f"{where}/{key}: {type(value).__name__} is neither a "
-                                     f"numeric array nor JSON-serialisable ({exc})") from None
-                if len(text.encode("utf-8")) > schema.MAX_JSON_ATTR_BYTES:
-                    raise ValueError(f"{where}/{key}: {len(text)} characters of JSON; store "
-                                     f"large numeric content as a numpy array")
-                set_attr(group, key, text)
-
-    def write_state(self, state: Mapping, *, units: Mapping[str, str] | None = None,
-                    descriptions: Mapping[str, str] | None = None) -> None:
-        """Replace ``/state``, the saved engine state for the next incremental run.
-
-        Same rules as :meth:`write_group`: numeric arrays become datasets, mappings subgroups,
-        other values JSON-text attributes.  :attr:`Archive.engine_state` gives it back.
-        """
-        self.write_group("/state", state, units=units, descriptions=descriptions,
-                         description=schema.GROUPS["/state"])
-
-    def write_table(self, path: str, rows, fields: Sequence[TableField], description: str) -> None:
-        """Create or replace a table outside the contract paths (e.g. ``/assessment/clocks``).
-
-        Parameters
-        ----------
-        path : str
-            Absolute dataset path.
-        rows : mapping of columns, or iterable of mappings
-            The records.
-        fields : sequence of TableField
-            The columns, their units and meanings.
-        description : str
-            One line.
-        """
-        self._require_open()
-        if (not isinstance(path, str) or not path.startswith("/") or path.count("/") < 1
-                or any(path == p or path.startswith(p + "/")
-                       for p in schema.RESERVED_PATHS + ("/state",))):
-            raise ValueError(f"write_table: {path!r} is not a table path outside the groups "
-                             f"reserved by the format")
-        spec = TableSpec(path, tuple(fields), description)
-        self._new_table(spec, rows_to_table(rows, spec, f"write_table {path}"))
-
-    def add_run_record(self, input_name: str, *, input_sha256: str | None = None,
-                       config_toml: str | None = None, time_utc: str | None = None) -> None:
-        """Describe this run for ``/provenance`` (written on commit; required before it).
-
-        Parameters
-        ----------
-        input_name : str
-            The measurement file as named by the user (at most 255 bytes of UTF-8).
-        input_sha256 : str, optional
-            SHA-256 (hex) of that file; default the root attribute ``input_sha256``.
-        config_toml : str, optional
-            Effective configuration; its SHA-256 is recorded.  Default the root attribute.
-        time_utc : str, optional
-            Time of the run, ISO 8601 UTC; default the time of the call.
-        """
-        self._require_open()
-        self._run = {"input_name": input_name, "input_sha256": input_sha256,
-                     "config_toml": config_toml, "time_utc": time_utc or utc_now()}
-
-    def _write_tables(self) -> None:
-        for path, (spec, ds, pending) in self._tables.items():
-            if not pending:
-                continue
-            new = np.concatenate(pending)
-            pending.clear()
-            if not len(new):
-                continue
-            if "mjd" in (new.dtype.names or ()):
-                new = new[np.argsort(new["mjd"], kind="stable")]
-            n = ds.shape[0]
-            start = n
-            if n and "mjd" in new.dtype.names and new["mjd"][0] < ds[n - 1]["mjd"]:
-                start = int(np.searchsorted(ds.fields("mjd")[...], new["mjd"][0], side="right"))
-                tail = ds[start:n]
-                new = np.concatenate([tail, new])
-                new = new[np.argsort(new["mjd"], kind="stable")]
-            ds.resize((start + len(new),))
-            ds[start:] = new
-
-    def _write_run_record(self) -> None:
-        run = self._run
-        f = self._f
-        config = run["config_toml"]
-        if config is None:
-            config = get_attr(f, "config_toml", "")
-        row = {
-            "time_utc": run["time_utc"],
-            "software_version": get_attr(f, "software_version", __version__),
-            "mode": self._mode,
-            "input_name": run["input_name"],
-            "input_sha256": (run["input_sha256"] if run["input_sha256"] is not None
-                             else get_attr(f, "input_sha256", "")),
-            "config_sha256": hashlib.sha256(config.encode("utf-8")).hexdigest(),
-            "epochs_added": self._epochs_added,
-            "first_mjd": np.nan if self._first_new is None else self._first_new,
-            "last_mjd": np.nan if self._first_new is None else self._last_mjd,
-        }
-        spec, ds, _ = self._tables[schema.PROVENANCE.path]
-        data = rows_to_table([row], spec, "add_run_record")
-        n = ds.shape[0]
-        ds.resize((n + 1,))
-        ds[n:] = data
 
     # ------------------------------------------------------------------ finishing
     def commit(self) -> None:
@@ -845,7 +461,10 @@ class ArchiveWriter:
         t0 = time.perf_counter()
         try:
             self._flush()
-            self._write_tables()
+            for _, ds, pending in self._tables.values():
+                if pending:
+                    merge_rows(ds, np.concatenate(pending))
+                    pending.clear()
             self._write_run_record()
             self._f.close()
         except BaseException:
