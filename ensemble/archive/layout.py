@@ -20,7 +20,6 @@ from .schema import EpochDataset, TableSpec
 
 CHUNK_BYTES = 64 * 1024      # target size of one chunk [bytes]
 CHUNK_CLOCKS = 16            # clocks per chunk of a (T, N) dataset
-WEIGHT_SUM_TOL = 1e-12       # |sum of a weight row - 1| allowed (contract: rows sum to 1)
 _KEY_CHARS = set("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789_.-")
 
 
@@ -221,11 +220,11 @@ def check_weights(mjd: np.ndarray, weight: np.ndarray, state: np.ndarray,
                          f"{schema.STATE_CODES[int(state[i, j])]}; only active clocks "
                          f"carry weight")
     sums = weight.sum(axis=1)
-    bad = np.abs(sums - 1.0) > WEIGHT_SUM_TOL
+    bad = np.abs(sums - 1.0) > schema.WEIGHT_SUM_TOL
     if bad.any():
         i = int(np.argmax(bad))
         raise ValueError(f"block['weight'] at MJD {mjd[i]!r}: the row sums to {sums[i]!r}; "
-                         f"each row must sum to 1 within {WEIGHT_SUM_TOL:g}")
+                         f"each row must sum to 1 within {schema.WEIGHT_SUM_TOL:g}")
 
 
 def _check_key(key, where: str) -> None:

@@ -301,6 +301,9 @@ RESERVED_PATHS = ("/epochs", "/clocks", "/scale", "/events", "/steering", "/prov
 #: Attribute names with a fixed meaning on every object (never state keys).
 RESERVED_ATTRS = ("units", "description", "dimensions", "codes", "field_descriptions")
 
+#: Tolerance of "each weight row sums to 1" (contract section 3), checked on write and verify.
+WEIGHT_SUM_TOL = 1e-12
+
 #: Largest JSON text stored as one attribute [bytes] (HDF5 object-header message limit 64 KiB).
 MAX_JSON_ATTR_BYTES = 60000
 

@@ -22,7 +22,6 @@ from . import schema
 from .h5io import describe_hdf5_failure, get_attr, open_h5
 
 _HEX64 = re.compile(r"^[0-9a-f]{64}$")
-_WEIGHT_SUM_TOL = 1e-12          # contract: each weight row sums to 1 (tolerance of the check)
 _ROWS_BYTES = 8 * 2 ** 20        # memory per slab when scanning (T, N) datasets [bytes]
 
 
@@ -242,7 +241,7 @@ def _check_weights_and_states(f: h5py.File, mjd: np.ndarray, clocks: list[str],
                     first[name] = (f"MJD {mjd[start + i]!r}, clock {clocks[j]}: state "
                                    f"{int(state[i, j])}, weight {weight[i, j]!r}")
         sums = weight.sum(axis=1)
-        bad = ~(np.abs(sums - 1.0) <= _WEIGHT_SUM_TOL)
+        bad = ~(np.abs(sums - 1.0) <= schema.WEIGHT_SUM_TOL)
         if bad.any():
             counts["sum"] += int(bad.sum())
             if "sum" not in first:
@@ -251,7 +250,7 @@ def _check_weights_and_states(f: h5py.File, mjd: np.ndarray, clocks: list[str],
     words = {
         "code": (schema.STATE.path, "cells hold an unknown state code"),
         "negative": (schema.WEIGHT.path, "cells are negative or not finite"),
-        "sum": (schema.WEIGHT.path, f"rows do not sum to 1 within {_WEIGHT_SUM_TOL:g}"),
+        "sum": (schema.WEIGHT.path, f"rows do not sum to 1 within {schema.WEIGHT_SUM_TOL:g}"),
         "inactive": (schema.WEIGHT.path, "cells give weight to a clock that is not active"),
     }
     for name, count in counts.items():
