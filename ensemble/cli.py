@@ -21,7 +21,7 @@ from . import __version__
 from .errors import EnsembleError
 
 #: Command modules in the order ``--help`` lists them.
-COMMANDS = ("run", "stability", "simulate", "steer")
+COMMANDS = ("run", "stability", "simulate", "steer", "inspect")
 
 log = logging.getLogger("ensemble")
 
