@@ -224,22 +224,36 @@ def _concat(parts: list) -> dict:
     return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
 
 
+#: Block keys of the per-epoch datasets, and the engine output each comes from.
+_BLOCK = {"offset_s": "offset", "frequency": "frequency", "drift_per_s": "drift",
+          "weight": "weight", "state": "state", "filter/scale_step_sigma": "scale_sigma",
+          "filter/residual_z": "zscore"}
+
+
+def _extra_datasets():
+    """The engine's own per-epoch figures written beside the contract datasets."""
+    from .archive import EpochDataset
+
+    return (EpochDataset("/filter/scale_step_sigma", "f8", False, "s",
+                         "estimated standard deviation of the scale's prediction error over "
+                         "the last sampling interval, from the clocks' noise levels and weights"),
+            EpochDataset("/filter/residual_z", "f8", True, "1",
+                         "each clock's prediction residual relative to the other clean clocks, "
+                         "divided by its predicted standard deviation; NaN where not measured"))
+
+
 def _new_block(size: int, n: int) -> dict:
-    return {"mjd": np.empty(size), "offset_s": np.empty((size, n)),
-            "frequency": np.empty((size, n)), "drift_per_s": np.empty((size, n)),
-            "weight": np.empty((size, n)), "state": np.empty((size, n), dtype=np.int8),
-            "scale_uncertainty_s": np.empty(size), "innovation": np.empty((size, n))}
+    block = {"mjd": np.empty(size), "filter/scale_step_sigma": np.empty(size),
+             "state": np.empty((size, n), dtype=np.int8)}
+    for key in ("offset_s", "frequency", "drift_per_s", "weight", "filter/residual_z"):
+        block[key] = np.empty((size, n))
+    return block
 
 
 def _fill(block: dict, b: int, mjd: float, out: dict) -> None:
     block["mjd"][b] = mjd
-    block["offset_s"][b] = out["offset"]
-    block["frequency"][b] = out["frequency"]
-    block["drift_per_s"][b] = out["drift"]
-    block["weight"][b] = out["weight"]
-    block["state"][b] = out["state"]
-    block["scale_uncertainty_s"][b] = out["scale_sigma"]
-    block["innovation"][b] = out["zscore"]
+    for key, name in _BLOCK.items():
+        block[key][b] = out[name]
 
 
 def _progress(total: int, wanted: bool):
@@ -281,3 +295,95 @@ def _interval_text(result: RunResult) -> str:
         return "epoch"
     dt = float(np.median(np.diff(result.mjd))) * 86400.0
     return f"{dt:g} s"
+
+
+def _event_fields():
+    from .archive import TableField
+
+    return (TableField("detected_mjd", "f8", "d", "epoch at which the anomaly was decided, MJD "
+                                                   "UTC"),
+            TableField("uncertainty", "f8", "s, 1 or 1/d as magnitude",
+                       "standard uncertainty of magnitude, in its unit"))
+
+
+def _steering_fields():
+    from .archive import TableField
+    from .steering.output import CONTRACT_COLUMNS, STEERING_COLUMNS
+
+    return tuple(TableField(name, dtype, units, desc)
+                 for name, (dtype, units, desc) in STEERING_COLUMNS.items()
+                 if name not in CONTRACT_COLUMNS)
+
+
+def run_to_archive(input_path, output, *, config=None, reference: str | None = None,
+                   overwrite: bool = False, progress: bool = False,
+                   keep: bool = False) -> RunResult:
+    """Read ``input_path``, form the scale and write the archive ``output`` atomically.
+
+    Parameters
+    ----------
+    input_path : path-like
+        Measurement CSV (long or wide form).
+    output : path-like
+        Archive to write.  Refused if it exists, unless ``overwrite``.
+    config : Config, path-like or None
+        Configuration (defaults when None).
+    reference : str, optional
+        Reference clock of a wide-form file (overrides [input].reference).
+    overwrite : bool
+        Replace an existing archive.
+    progress : bool
+        Progress bar on a terminal.
+    keep : bool
+        Also keep all arrays in memory in the result.
+
+    Returns
+    -------
+    RunResult
+    """
+    from .archive import ArchiveWriter
+    from .io.csvread import read_measurements
+
+    cfg = config if isinstance(config, Config) else load_config(config)
+    meas = read_measurements(input_path, reference=reference or cfg.input.reference or None)
+    output = pathlib.Path(output)
+    if output.exists() and not overwrite:
+        from .errors import InputError
+        raise InputError("the archive exists; continue it with --append, or replace it with "
+                         "--overwrite", path=str(output))
+    attrs = {"config_toml": cfg.to_toml(), "input_sha256": meas.sha256}
+    writer = ArchiveWriter.create(output, meas.clocks, attrs,
+                                  extra_epoch_datasets=_extra_datasets(),
+                                  extra_event_fields=_event_fields(),
+                                  steering_fields=_steering_fields(), overwrite=overwrite)
+    with writer:
+        def sink(block, steer_cols):
+            writer.append_epochs(block)
+            if steer_cols:
+                writer.append_steering(steer_cols)
+
+        result = form_time_scale(meas, cfg, sink=sink, keep=keep, progress=progress)
+        if result.events:
+            writer.append_events([dataclasses.asdict(e) for e in result.events])
+        writer.write_group("/startup", _startup_group(result.startup),
+                           units=_STARTUP_UNITS, descriptions=_STARTUP_DESCRIPTIONS)
+        writer.add_run_record(os.path.basename(str(input_path)))
+    result.archive = str(output)
+    return result
+
+
+_STARTUP_UNITS = {"q1": "s", "q2": "1/s", "q3": "1/s^3", "r": "s^2", "source": "none"}
+_STARTUP_DESCRIPTIONS = {
+    "q1": "white FM level of each clock's model at the start (sigma_y^2(tau) = q1/tau)",
+    "q2": "random-walk FM level of each clock's model at the start",
+    "q3": "random-run FM level of each clock's model at the start",
+    "r": "white PM variance of each clock's measurement channel",
+    "source": "where each clock's levels came from: config, estimated, type, default, monitor"}
+
+
+def _startup_group(report: StartupReport) -> dict:
+    return {"q1": np.array([n.q1_s for n in report.noise]),
+            "q2": np.array([n.q2_per_s for n in report.noise]),
+            "q3": np.array([n.q3_per_s3 for n in report.noise]),
+            "r": np.array([n.r_s2 for n in report.noise]),
+            "source": list(report.source)}

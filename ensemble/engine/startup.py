@@ -4,10 +4,11 @@ For clocks whose noise levels the configuration does not give:
 
 1. overlapping Hadamard variances of every pair difference (or of each clock against a few
    anchor clocks in large ensembles) at octave averaging times over the initial stretch;
-2. a non-negative weighted fit of (r, q1, q2) to each pair's curve and the N-cornered hat to
-   separate them per clock (:func:`ensemble.stability.fit.separate_clock_noise`).  Fitted over
-   the averaging times where the filter runs, the q's are *effective* levels that also carry
-   the flicker FM the model cannot represent (primer c.6, f.1);
+2. the N-cornered hat at each averaging time (:func:`ensemble.stability.hat.n_cornered_hat`),
+   then a non-negative weighted fit of (r, q1, q2) to each clock's curve
+   (:func:`ensemble.stability.fit.fit_noise`).  Fitted over the averaging times where the
+   filter runs, the q's are *effective* levels that also carry the flicker FM the model cannot
+   represent (primer c.6, f.1);
 3. initial phase, frequency and drift of each clock relative to the first epoch's reference,
    from a polynomial fit over the same stretch, with covariances from the noise levels.
 
@@ -80,8 +81,8 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     """
     from ..stability.deviations import overlapping_avar_hvar
     from ..stability.edf import edf_greenhall
-    from ..stability.fit import separate_clock_noise
-    from ..stability.hat import NegativeVarianceWarning
+    from ..stability.fit import fit_noise
+    from ..stability.hat import NegativeVarianceWarning, n_cornered_hat
 
     idx = np.flatnonzero(members)
     messages: list[str] = []
@@ -115,18 +116,55 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     edf = np.where(ok, edf, 1.0)
     labels = [clock_names[i] for i in idx]
     name_pairs = [(clock_names[a], clock_names[b]) for a, b in pairs]
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", NegativeVarianceWarning)
-        sep = separate_clock_noise(name_pairs, ov.tau_s, hvar, edf, clocks=labels,
-                                   kind="hadamard", terms=("r", "q1", "q2"), warn=True)
-    for w in caught:
-        messages.append(str(w.message))
-    messages.extend(sep.messages)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NegativeVarianceWarning)
+        # least-squares weights = inverse variance of each pair estimate, edf / (2 s^4)
+        weights = np.where(np.isfinite(hvar), edf / np.where(np.isfinite(hvar), hvar, 1.0) ** 2,
+                           np.nan)
+        weights = weights / np.nanmax(weights, axis=0, keepdims=True)
+        hat = n_cornered_hat(hvar, name_pairs, pair_edf=edf, weights=weights, clocks=labels,
+                             warn=False)
+    # Each clock is at most as noisy as its quietest pair: sigma_i^2 <= min_j sigma_ij^2.
+    # Where the hat cannot separate a clock at some tau (negative, or uncertain by more than
+    # half, as for two equal dominant clocks whose pairs with noisier clocks say little),
+    # half of that quietest pair is the natural estimate.
+    pair_arr = np.array(pairs)
+    # White PM belongs to the measurement system and shows only in the quietest pairs: take its
+    # level from the quietest pair (half per channel), and keep a clock's own fitted value only
+    # where it stays near that level (elsewhere the fit trades white PM for white FM).
+    quiet = int(np.nanargmin(np.where(np.isfinite(hvar[:, 0]), hvar[:, 0], np.inf)))
+    q_ok = np.isfinite(hvar[quiet]) & (hvar[quiet] > 0)
+    r_sys = 0.0
+    if q_ok.sum() >= 3:
+        r_sys = 0.5 * fit_noise(ov.tau_s[q_ok], hvar[quiet, q_ok], np.maximum(edf[quiet, q_ok], 1),
+                                kind="hadamard", terms=("r", "q1", "q2")).noise.r_s2
     out = {}
     for k, i in enumerate(idx):
-        nz = sep.noise[k]
-        bad = bool(np.any(sep.negative[k])) if np.ndim(sep.negative) else bool(sep.negative)
-        out[int(i)] = None if (bad or nz.q1_s <= 0) else nz
+        mine = (pair_arr[:, 0] == i) | (pair_arr[:, 1] == i)
+        bound = np.nanmin(np.where(mine[:, None], hvar, np.nan), axis=0)
+        var = np.array(hat.variance[k], dtype=float)
+        std = np.array(hat.std[k], dtype=float)
+        good = (var > 0) & np.isfinite(std) & (std < 0.5 * var)
+        value = np.where(good, np.minimum(var, bound), 0.5 * bound)
+        point_edf = np.where(good, 2.0 * (var / np.where(good, std, 1.0)) ** 2,
+                             np.nanmax(np.where(mine[:, None], edf, np.nan), axis=0))
+        use = np.isfinite(value) & (value > 0) & np.isfinite(point_edf)
+        if use.sum() < 3:
+            out[int(i)] = None
+            continue
+        if not good[0]:
+            messages.append(f"{clock_names[i]}: not separable from its pairs at the shortest "
+                            f"averaging times; half of its quietest pair used")
+        tau, w = ov.tau_s[use], np.maximum(point_edf[use], 1.0)
+        nz = fit_noise(tau, value[use], w, kind="hadamard", terms=("r", "q1", "q2")).noise
+        if nz.r_s2 > 4.0 * r_sys:
+            rest = value[use] - 10.0 * r_sys / (3.0 * tau ** 2)
+            keep = rest > 0
+            if keep.sum() >= 2:
+                nz = fit_noise(tau[keep], rest[keep], w[keep], kind="hadamard",
+                               terms=("q1", "q2")).noise
+            nz = ClockNoise(nz.q1_s, nz.q2_per_s, 0.0, r_sys)
+        out[int(i)] = nz if nz.q1_s > 0 else None
     return out, messages
 
 

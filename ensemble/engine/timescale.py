@@ -499,7 +499,12 @@ class TimeScaleEngine:
         return pivot
 
     def _fallback_readout(self, z, members, pivot, est, dt):
-        """No clock can carry the scale this epoch: read it from the filter's frame."""
+        """No clock can carry the scale this epoch: read it from the filter's frame.
+
+        The weights reported are the frame weights (which define the frame); should no clock
+        be active at all, the clock with the largest frame weight is made active, since the
+        ensemble cannot run without a member.
+        """
         self.scale_minus_frame -= self.frame_frequency * dt + 0.5 * self.frame_drift * dt * dt
         used = np.zeros(self.n)
         p = pivot
@@ -507,10 +512,15 @@ class TimeScaleEngine:
             p = int(np.flatnonzero(members)[0])
         if p < 0:
             return math.nan, used
-        if self.frame_weights.sum() > 0:
-            used = self.frame_weights.copy()
-        else:
-            used[p] = 1.0
+        if not (self.status == ACTIVE).any():
+            best = int(np.argmax(np.where(self.filter.active, self.frame_weights, -1.0)))
+            self.status[best] = ACTIVE
+            self.status_since[best] = self.t
+            self._frame_weight_update()
+        used = np.where(self.status == ACTIVE, self.frame_weights, 0.0)
+        if used.sum() <= 0:
+            used = (self.status == ACTIVE).astype(float)
+        used /= used.sum()
         return float(z[p] - est[p, 0] + self.scale_minus_frame), used
 
     # ---------------------------------------------------------------- hold episodes
