@@ -176,7 +176,8 @@ def _parse_float(text: str, option: str) -> float:
 # Output
 
 
-_METHOD_WORDS = {"lag1": "lag-1 autocorrelation", "b1": "B1 ratio",
+_METHOD_WORDS = {"lag1": "lag-1 autocorrelation",
+                 "lag1+rn": "lag-1 autocorrelation, PM split by MVAR/AVAR", "b1": "B1 ratio",
                  "b1+rn": "B1 ratio, PM split by MVAR/AVAR", "b1+r1": "B1 ratio, PM split by lag-1",
                  "carried": "from a shorter tau", "default": "too few values: white FM assumed",
                  "given": "set by --noise"}
