@@ -35,7 +35,7 @@ flicker-walk FM, -4 random-run FM.  At averaging factor m the data are first red
   the nearest shorter averaging time (:mod:`ensemble.stability.table`).
 
 The thresholds come from seeded simulations (benchmarks/bench_stability.py prints the hit
-rates).  At m = 1 the lag-1 method beats B1 from about 30 samples.  Below 8 samples B1 is right
+rates).  At m = 1 the lag-1 method is at least as good as B1 from about 20-30 samples.  Below 8 samples B1 is right
 in only 25-70 % of records and calls FM noise "PM" in up to 18 %, so the shorter tau's estimate
 is carried instead.
 
@@ -43,8 +43,8 @@ Known limitation (measured, not in the method's description): at m > 1 the lag-1
 biased for the flicker noises, because decimated or averaged flicker noise is not the discrete
 fractional noise the rule alpha = -2 (delta + d) assumes: flicker PM reads as white PM (hence
 the R(n) split above) and flicker FM sits near the -1/-2 boundary (-1.45 in the limit of large
-m), so it is found in only 50-60 % of seeded records with 100 samples at m = 4 or 16, against
-92-98 % for B1 with R(n).  Use ``alpha=`` (``--noise``) when the noise type is known.
+m), so it is found in only 50-65 % of seeded records with 100 samples at m = 4 or 16, against
+95-98 % for B1 with R(n).  Use ``alpha=`` (``--noise``) when the noise type is known.
 """
 
 from __future__ import annotations
