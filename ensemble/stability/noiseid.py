@@ -35,9 +35,9 @@ flicker-walk FM, -4 random-run FM.  At averaging factor m the data are first red
   the nearest shorter averaging time (:mod:`ensemble.stability.table`).
 
 The thresholds come from seeded simulations (benchmarks/bench_stability.py prints the hit
-rates).  At m = 1 the lag-1 method is at least as good as B1 from about 20-30 samples.  Below 8 samples B1 is right
-in only 25-70 % of records and calls FM noise "PM" in up to 18 %, so the shorter tau's estimate
-is carried instead.
+rates).  At m = 1 the lag-1 method is at least as good as B1 from about 20-30 samples.  Below
+8 samples B1 is right in only 25-70 % of records and calls FM noise "PM" in up to 18 %, so the
+shorter tau's estimate is carried instead.
 
 Known limitation (measured, not in the method's description): at m > 1 the lag-1 estimate is
 biased for the flicker noises, because decimated or averaged flicker noise is not the discrete
