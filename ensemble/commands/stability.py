@@ -215,6 +215,7 @@ def main(args: argparse.Namespace) -> int:
 
     from ..stability.confidence import CONFIDENCE_68, check_confidence
     from ..stability.deviations import check_tau0
+    from ..stability.noiseid import NOISE_CODES
     from ..stability.table import stability_table
 
     tau0 = check_tau0(_parse_float(args.tau0, "--tau0"))
@@ -222,8 +223,6 @@ def main(args: argparse.Namespace) -> int:
     confidence = CONFIDENCE_68
     if args.confidence is not None:
         confidence = check_confidence(_parse_float(args.confidence, "--confidence"))
-    from ..stability.noiseid import NOISE_CODES
-
     alpha = None
     if args.noise != "AUTO":
         alpha = {code: a for a, code in NOISE_CODES.items()}[args.noise]
