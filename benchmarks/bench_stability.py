@@ -100,7 +100,7 @@ def noise_id_quality(trials: int = 100) -> None:
 
     rng = np.random.default_rng(7)
     print(f"\nnoise identification hit rate, {trials} seeded Kasdin-Walter phase records per "
-          "cell (lag-1 / B1 with R(n)):")
+          "cell (lag-1 with the R(n) split of PM results / B1 with R(n)):")
     print("   m  samples    WPM        FPM        WFM        FFM        RWFM")
     saved = noiseid.LAG1_MIN_SAMPLES
     try:

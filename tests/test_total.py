@@ -1,4 +1,4 @@
-"""Total deviation: reflection, equality with OADEV at m = 1, gaps at the ends, bias for white FM."""
+"""Total deviation: reflection, OADEV at m = 1, gaps at the ends, bias for white FM."""
 
 from __future__ import annotations
 

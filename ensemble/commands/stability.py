@@ -176,7 +176,8 @@ def _parse_float(text: str, option: str) -> float:
 # Output
 
 
-_METHOD_WORDS = {"lag1": "lag-1 autocorrelation", "b1": "B1 ratio",
+_METHOD_WORDS = {"lag1": "lag-1 autocorrelation",
+                 "lag1+rn": "lag-1 autocorrelation, PM split by MVAR/AVAR", "b1": "B1 ratio",
                  "b1+rn": "B1 ratio, PM split by MVAR/AVAR", "b1+r1": "B1 ratio, PM split by lag-1",
                  "carried": "from a shorter tau", "default": "too few values: white FM assumed",
                  "given": "set by --noise"}
@@ -214,6 +215,7 @@ def main(args: argparse.Namespace) -> int:
 
     from ..stability.confidence import CONFIDENCE_68, check_confidence
     from ..stability.deviations import check_tau0
+    from ..stability.noiseid import NOISE_CODES
     from ..stability.table import stability_table
 
     tau0 = check_tau0(_parse_float(args.tau0, "--tau0"))
@@ -221,8 +223,6 @@ def main(args: argparse.Namespace) -> int:
     confidence = CONFIDENCE_68
     if args.confidence is not None:
         confidence = check_confidence(_parse_float(args.confidence, "--confidence"))
-    from ..stability.noiseid import NOISE_CODES
-
     alpha = None
     if args.noise != "AUTO":
         alpha = {code: a for a, code in NOISE_CODES.items()}[args.noise]

@@ -156,8 +156,7 @@ def as_series_array(values, *, name: str = "values") -> np.ndarray:
 def _phase_series(x: np.ndarray) -> _Series:
     bad = np.isnan(x)
     if bad.any():
-        x = np.where(bad, 0.0, x)
-        return _Series(x, bad=bad)
+        return _Series(np.where(bad, 0.0, x), bad=bad)
     return _Series(x)
 
 
@@ -365,9 +364,8 @@ def _differences(series: _Series, order: int, m: int):
 
 
 def _sum_squares(terms, valid):
-    if valid is None:
-        return float(np.dot(terms, terms)), int(terms.size)
-    return float(np.dot(terms, terms)), int(np.count_nonzero(valid))
+    n = int(terms.size) if valid is None else int(np.count_nonzero(valid))
+    return float(np.dot(terms, terms)), n
 
 
 def _window_sums(terms, valid, m: int):
@@ -566,8 +564,7 @@ def overlapping_avar_hvar(phase_s, tau0_s: float, m: int | Sequence[int]) -> Ove
     if x.ndim not in (1, 2):
         raise InputError(f"phase_s must be 1-D or 2-D (time on axis 0), got shape {x.shape}")
     one_d = x.ndim == 1
-    if one_d:
-        x = x[:, None]
+    x = x[:, None] if one_d else x
     if np.isinf(x).any():
         raise InputError("phase_s holds an infinite value; use NaN for a missing value")
     factors = resolve_factors(m, x.shape[0], "oadev")
@@ -595,10 +592,9 @@ def overlapping_avar_hvar(phase_s, tau0_s: float, m: int | Sequence[int]) -> Ove
                 cnt = nt - inv.sum(axis=0)
             else:
                 cnt = np.full(n_ser, nt)
-            ss = np.einsum("ij,ij->j", t, t)
             counts[k] = cnt
-            with np.errstate(invalid="ignore", divide="ignore"):
-                out[k] = np.where(cnt > 0, ss / (norm * tau2 * np.maximum(cnt, 1)), np.nan)
+            out[k] = np.where(cnt > 0, np.einsum("ij,ij->j", t, t)
+                              / (norm * tau2 * np.maximum(cnt, 1)), np.nan)
     if one_d:
         avar, hvar, n_a, n_h = avar[:, 0], hvar[:, 0], n_a[:, 0], n_h[:, 0]
     return OverlappingVariances(factors, factors * tau0, avar, n_a, hvar, n_h)

@@ -53,7 +53,8 @@ class StabilityRow:
     m : int
         Averaging factor.
     noise_method : str
-        How alpha was found: 'lag1', 'b1', 'b1+rn', 'b1+r1', 'carried', 'default' or 'given'.
+        How alpha was found: 'lag1', 'lag1+rn', 'b1', 'b1+rn', 'b1+r1', 'carried', 'default'
+        or 'given'.
     """
 
     tau_s: float
