@@ -48,10 +48,6 @@ ABSENT, PROBATION, ACTIVE, EXCLUDED, REMOVED, MONITOR = 0, 1, 2, 3, 4, 5
 STATE_NAMES = {ABSENT: "absent", PROBATION: "probation", ACTIVE: "active",
                EXCLUDED: "excluded", REMOVED: "removed", MONITOR: "monitor"}
 
-#: Epochs kept per clock for noise tracking.
-HISTORY = 256
-#: Prediction spans (multiples of the sampling interval) of the noise tracking.
-TRACK_SPANS = np.array([1, 2, 4, 8, 16, 32, 64, 128])
 #: Epochs over which a clock must be "in family" before it is (re-)admitted.
 FAMILY_EPOCHS = 24
 #: 99 % point of chi2(n)/n for n = 0..FAMILY_EPOCHS (index n; n = 0 unused).
@@ -179,14 +175,10 @@ class TimeScaleEngine:
         self.slow = SignatureGLR(n, detection.window_epochs,
                                  window_threshold(0.25 * rate, detection.window_epochs))
         self.events: list[Event] = []
-        # histories (ring buffers, the epoch k in slot k % HISTORY)
-        self.hist_t = np.full(HISTORY, np.nan)
-        self.hist_offset = np.full((HISTORY, n), np.nan)
-        self.hist_freq = np.full((HISTORY, n), np.nan)
-        self.hist_drift = np.full((HISTORY, n), np.nan)
-        self.hist_clean = np.zeros((HISTORY, n), dtype=bool)
         self.family = np.full((FAMILY_EPOCHS, n), np.nan)   # standardised BTSE residuals^2
-        self.track_ms = np.full((n, TRACK_SPANS.size), np.nan)
+        # noise tracking: running mean of each clock's squared standardised residual
+        self.z2_mean = np.ones(n)
+        self.z2_count = np.zeros(n)
         self.next_tracking_t = math.nan
 
     # ------------------------------------------------------------------------- helpers
@@ -307,7 +299,7 @@ class TimeScaleEngine:
                              phase_link=pivot)
         self.status[i] = PROBATION
         self.status_since[i] = t
-        self.track_ms[i] = np.nan
+        self._reset_tracking(i)
         self.family[:, i] = np.nan
         self.slow.reset(i)
         self.prev_clean[i] = False
@@ -422,7 +414,8 @@ class TimeScaleEngine:
         clean_now = clean & ~decided
         if not first:
             self._record_family(offset - pred, clean_now, used, dt)
-        self._record_history(offset, freq, drift, clean_now)
+        if self.cfg.tracking and not first:
+            self._record_residuals(zscore, clean_now)
         if (self.status == PROBATION).any() or (self.status == EXCLUDED).any():
             self._advance_standings(t_s)
         if self.cfg.tracking and t_s >= self.next_tracking_t:
@@ -596,7 +589,7 @@ class TimeScaleEngine:
             self.status_since[i] = t_s
             self.exclusion_days[i] = self.cfg.relearn_days if relearn else self.cfg.settle_days
             if relearn:
-                self.track_ms[i] = np.nan
+                self._reset_tracking(i)
                 self.family[:, i] = np.nan
         self.prev_clean[i] = False
 
@@ -639,83 +632,42 @@ class TimeScaleEngine:
         expected = np.maximum(model * (1.0 - 2.0 * used) + scale_var, 1e-3 * model)
         self.family[row, ok] = residual[ok] ** 2 / expected[ok]
 
-    def _record_history(self, offset, freq, drift, clean_now) -> None:
-        k = self.epoch
-        j = k % HISTORY
-        self.hist_t[j] = self.t
-        self.hist_offset[j] = offset
-        self.hist_freq[j] = freq
-        self.hist_drift[j] = drift
-        self.hist_clean[j] = clean_now
-        if k == 0 or not self.cfg.tracking:
+    def _reset_tracking(self, i: int) -> None:
+        self.z2_mean[i] = 1.0
+        self.z2_count[i] = 0.0
+
+    def _record_residuals(self, zscore: np.ndarray, clean_now: np.ndarray) -> None:
+        """Running mean of each clock's squared standardised residual (model check)."""
+        ok = clean_now & np.isfinite(zscore)
+        if not ok.any():
             return
-        # span residuals for the noise tracking, all spans at once
-        m = TRACK_SPANS[TRACK_SPANS <= k]
-        jp = (k - m) % HISTORY
-        span = self.t - self.hist_t[jp]                              # (S,)
-        good_span = np.abs(span - m * self.tau0_s) < 0.5 * self.tau0_s
-        s = span[:, None]
-        pred = self.hist_offset[jp] + self.hist_freq[jp] * s + 0.5 * self.hist_drift[jp] * s * s
-        r2 = (offset[None, :] - pred) ** 2                            # (S, N)
-        upd = clean_now[None, :] & self.hist_clean[jp] & good_span[:, None] & np.isfinite(r2)
         lam = min(1.0, self.tau0_s / (self.cfg.tracking_memory_days * SECONDS_PER_DAY))
-        cur = self.track_ms[:, :m.size].T
-        new = np.where(np.isfinite(cur), (1.0 - lam) * cur + lam * r2, r2)
-        self.track_ms[:, :m.size] = np.where(upd, new, cur).T
+        z2 = np.minimum(zscore[ok] ** 2, 25.0)   # one anomaly must not dominate the mean
+        self.z2_mean[ok] += lam * (z2 - self.z2_mean[ok])
+        self.z2_count[ok] += 1.0
 
     def _track_noise(self) -> None:
-        """Re-estimate q1, q2, q3 of each clock from its span residuals (rate-limited).
+        """Re-scale each clock's noise levels so that its residuals have unit variance.
 
-        The running mean square m_i(s) of a clock's prediction residuals over span s against
-        the scale is modelled as sigma_i^2(s) (1 - 2 w_i) + sigma_E^2(s), with
-        sigma_i^2(s) = 2 r + q1 s + q2 s^3 / 3 + q3 s^5 / 20 + s^2 P_yy and
-        sigma_E^2(s) = sum_j w_j^2 sigma_j^2(s); the q's follow by non-negative weighted
-        least squares.  A clock carrying a quarter of the scale or more is not re-estimated
-        this way (its residuals would mostly be against itself).
+        The mean squared standardised residual of a correct model is 1 (the innovation check of
+        Tryon & Jones 1983; primer e.2: a steady excess means the q's are too small).  When a
+        clock's running mean departs from 1 by more than three standard errors, q1 and q2 are
+        scaled by that ratio, limited to ``tracking_max_change`` per re-estimation, so a clock
+        whose noise grows loses weight gradually.
         """
-        spans = TRACK_SPANS * self.tau0_s
         limit = 1.0 + self.cfg.tracking_max_change
-        act = np.flatnonzero(self.filter.active & ~self.monitor)
-        if act.size == 0:
-            return
-        p_yy = self._p_yy()
-        q = self.q_si
-        model = (2 * self.r_si[:, None] + q[:, :1] * spans + q[:, 1:2] * spans ** 3 / 3.0
-                 + q[:, 2:3] * spans ** 5 / 20.0 + spans ** 2 * p_yy[:, None])
-        w = self.weights
-        scale_part = (w[act] ** 2) @ model[act]
+        n_eff = np.minimum(self.z2_count, self.cfg.tracking_memory_days * SECONDS_PER_DAY
+                           / self.tau0_s)
+        week = 7 * SECONDS_PER_DAY / self.tau0_s
+        ratio = self.z2_mean
+        significant = (n_eff >= week) & (np.abs(ratio - 1.0) > 3.0 * np.sqrt(2.0 / np.maximum(n_eff, 1)))
         changed = False
-        for i in act:
-            if self.status[i] not in (ACTIVE, PROBATION, EXCLUDED):
-                continue
-            if max(w[i], self.frame_weights[i]) >= 0.25:
-                continue
-            ms = self.track_ms[i]
-            ok = np.isfinite(ms)
-            if ok.sum() < 4:
-                continue
-            own = (ms[ok] - scale_part[ok] + w[i] ** 2 * model[i, ok]) / (1.0 - 2.0 * w[i])
-            target = own - spans[ok] ** 2 * p_yy[i] - 2.0 * self.r_si[i]
-            s_ok = spans[ok]
-            cols = [s_ok, s_ok ** 3 / 3.0] + ([s_ok ** 5 / 20.0] if self.has_drift[i] else [])
-            a = np.column_stack(cols)
-            weight = 1.0 / np.maximum(np.abs(ms[ok]), 1e-40)
-            aw = a * weight[:, None]
-            col_scale = np.abs(aw).max(axis=0)
-            col_scale[col_scale == 0] = 1.0
-            sol, _ = scipy.optimize.nnls(aw / col_scale, target * weight)
-            sol = sol / col_scale
+        for i in np.flatnonzero(significant & self.filter.active & ~self.monitor):
+            f = float(np.clip(ratio[i], 1.0 / limit, limit))
             nz = self.noise[i]
-
-            def limited(old, new):
-                if old <= 0:
-                    return float(new)
-                return float(np.clip(new, old / limit, old * limit))
-
-            q3 = limited(nz.q3_per_s3, sol[2]) if self.has_drift[i] else nz.q3_per_s3
-            new = ClockNoise(limited(nz.q1_s, sol[0]), limited(nz.q2_per_s, sol[1]), q3, nz.r_s2)
-            if new != nz:
-                self._set_noise(i, new)
-                changed = True
+            self._set_noise(i, ClockNoise(nz.q1_s * f, nz.q2_per_s * f, nz.q3_per_s3 * f,
+                                          nz.r_s2))
+            self.z2_mean[i] /= f
+            changed = True
         if changed:
             self._frame_weight_update()
