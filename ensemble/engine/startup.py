@@ -62,7 +62,7 @@ def _octaves(n_points: int) -> np.ndarray:
 
 
 def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
-                   clock_names) -> tuple[dict, list]:
+                   clock_names, match_tau_s: float | None = None) -> tuple[dict, list]:
     """Per-clock ClockNoise from the pairwise Hadamard variances over a stretch.
 
     Parameters
@@ -74,6 +74,10 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     members : ndarray of bool, shape (n_clocks,)
         Clocks to estimate.
     clock_names : sequence of str
+    match_tau_s : float, optional
+        The model has no flicker FM: a fitted flicker floor is carried by an effective
+        random-walk FM level with the same Hadamard variance at this averaging time [s]
+        (default: 48 sampling intervals).
 
     Returns
     -------
@@ -81,7 +85,7 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     """
     from ..stability.deviations import overlapping_avar_hvar
     from ..stability.edf import edf_greenhall
-    from ..stability.fit import fit_noise
+    from ..stability.fit import FLICKER_HVAR, fit_noise
     from ..stability.hat import NegativeVarianceWarning, n_cornered_hat
 
     idx = np.flatnonzero(members)
@@ -129,6 +133,7 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     # half, as for two equal dominant clocks whose pairs with noisier clocks say little),
     # half of that quietest pair is the natural estimate.
     pair_arr = np.array(pairs)
+    match = match_tau_s if match_tau_s is not None else 48.0 * tau0_s
     # White PM belongs to the measurement system and shows only in the quietest pairs: take its
     # level from the quietest pair (half per channel), and keep a clock's own fitted value only
     # where it stays near that level (elsewhere the fit trades white PM for white FM).
@@ -156,14 +161,18 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
             messages.append(f"{clock_names[i]}: not separable from its pairs at the shortest "
                             f"averaging times; half of its quietest pair used")
         tau, w = ov.tau_s[use], np.maximum(point_edf[use], 1.0)
-        nz = fit_noise(tau, value[use], w, kind="hadamard", terms=("r", "q1", "q2")).noise
-        if nz.r_s2 > 4.0 * r_sys:
+        fit = fit_noise(tau, value[use], w, kind="hadamard", terms=("r", "q1", "q2", "flicker"))
+        r_fit = fit.noise.r_s2
+        if r_fit > 4.0 * r_sys:
             rest = value[use] - 10.0 * r_sys / (3.0 * tau ** 2)
             keep = rest > 0
-            if keep.sum() >= 2:
-                nz = fit_noise(tau[keep], rest[keep], w[keep], kind="hadamard",
-                               terms=("q1", "q2")).noise
-            nz = ClockNoise(nz.q1_s, nz.q2_per_s, 0.0, r_sys)
+            if keep.sum() >= 3:
+                fit = fit_noise(tau[keep], rest[keep], w[keep], kind="hadamard",
+                                terms=("q1", "q2", "flicker"))
+            r_fit = r_sys
+        h1 = fit.flicker_h_minus1 if np.isfinite(fit.flicker_h_minus1) else 0.0
+        q2 = fit.noise.q2_per_s + 6.0 * FLICKER_HVAR * h1 / match
+        nz = ClockNoise(fit.noise.q1_s, q2, 0.0, r_fit)
         out[int(i)] = nz if nz.q1_s > 0 else None
     return out, messages
 
