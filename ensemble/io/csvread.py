@@ -387,6 +387,10 @@ def _parse_wide(table: Table, keys: list[str], path: str, reference: str | None,
 
     names = table.names
     if keys[0] not in _TIME_KEYS:
+        if re.fullmatch(r"[+-]?[\d.]+([eE][+-]?\d+)?", names[0]):
+            raise InputError(f"line 1 looks like data ({names[0]!r}...), not a header; the first "
+                             f"line must be the header, e.g. mjd,clock,reference,phase",
+                             path=path, row=1)
         raise InputError(f"first column is {names[0]!r}; expected 'mjd' or 'time' first (wide "
                          f"form: mjd,<clock>,<clock>,...) or a long-form header "
                          f"mjd,clock,reference,phase", path=path, row=1, column=names[0])

@@ -53,9 +53,13 @@ def _column_of(data: bytes, pos: int) -> str | None:
     start = data.rfind(b"\n", 0, pos) + 1
     if start == 0:
         return None
-    header = data[: data.find(b"\n")].decode("utf-8", "replace").lstrip("\ufeff").split(",")
+    try:
+        header = data[: data.find(b"\n")].decode("utf-8").lstrip("\ufeff").split(",")
+    except UnicodeDecodeError:
+        return None
     idx = data.count(b",", start, pos)
-    return header[idx].strip() if idx < len(header) else None
+    name = header[idx].strip() if idx < len(header) else ""
+    return name if name.isprintable() and 0 < len(name) <= 40 else None
 
 
 def decode(data: bytes, path: str) -> bytes:
@@ -101,9 +105,28 @@ def decode(data: bytes, path: str) -> bytes:
         pos = int(np.argmax(control))
         raise InputError(f"file is not UTF-8 text: control byte 0x{data[pos]:02x} (binary data?)",
                          path=path, row=_line_of(data, pos), column=_column_of(data, pos))
+    odd = _unusual_break(data, arr)
+    if odd >= 0:
+        raise InputError("file is not plain text: it holds a Unicode line separator or C1 control "
+                         "character", path=path, row=_line_of(data, odd),
+                         column=_column_of(data, odd))
     if b"\r" in data:
         data = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
     return data
+
+
+def _unusual_break(data: bytes, arr: np.ndarray) -> int:
+    """Position of the first U+0080..U+009F, U+2028 or U+2029 in UTF-8 ``data``, or -1.
+
+    These break lines in some programs and not in others, so line numbers would disagree.
+    """
+    found = [data.find(b"\xe2\x80\xa8"), data.find(b"\xe2\x80\xa9")]
+    lead = np.flatnonzero(arr[:-1] == 0xC2)
+    c1 = lead[(arr[lead + 1] >= 0x80) & (arr[lead + 1] <= 0x9F)]
+    if c1.size:
+        found.append(int(c1[0]))
+    found = [f for f in found if f >= 0]
+    return min(found) if found else -1
 
 
 @dataclass(frozen=True)

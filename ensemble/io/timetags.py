@@ -250,7 +250,7 @@ def parse_mjd_texts(texts) -> ParsedTags:
         else:
             errors[int(i)] = (f"{_show(t)} is not a decimal MJD; write e.g. 60676.541667 "
                               f"(UTC, days), or use a 'time' column with {ISO_FORMS}")
-    values = np.where(ok, values, 0.0)
+    values = np.where(ok, np.clip(values, -1.0, 1e6), 0.0)   # clipped: still out of range
     day = np.floor(values).astype(np.int64)
     sod = (values - day) * _DAY_S
     _check_range(day, ok, errors, texts)
@@ -393,8 +393,10 @@ def digits_needed(tau0_s: float) -> int:
 
 
 #: Largest ratio between the most common and the smallest spacing for the smallest one to be
-#: tried as the interval (a grid with 99 % of its slots empty is taken as irregular sampling).
+#: tried as the interval, and the least share of filled slots such a grid must have: an odd
+#: epoch close to a regular one is a duplicate, not a sign of a finer grid.
 _MAX_GAP_RATIO = 100
+_MIN_FILL = 0.25
 #: Round steps tried for tau0, roundest first [s]; tau0 is always a whole number of ms.
 _ROUND_STEPS_S = (3600.0, 60.0, 10.0, 1.0, 0.1, 0.01, 0.001)
 
@@ -414,7 +416,7 @@ class _Fit:
 
 
 def _estimates(x: np.ndarray, resolution_s: float) -> list[tuple[str, float]]:
-    """Approximate intervals [s]: the most common spacing, then the smallest if it divides it.
+    """Approximate intervals [s]: the most common spacing, then the smallest (1.5 to 100 x less).
 
     A spacing's weight is the number of spacings within 25 % of it, so that the scatter of
     rounded tags does not split one interval over several bins; ties go to the longer spacing.
@@ -435,8 +437,7 @@ def _estimates(x: np.ndarray, resolution_s: float) -> list[tuple[str, float]]:
     common = mean_near(values[best])
     out = [("most common", common)]
     smallest = mean_near(values[0])
-    ratio = common / smallest
-    if 2 <= round(ratio) <= _MAX_GAP_RATIO and abs(ratio - round(ratio)) < 0.01 * ratio:
+    if 1.5 <= common / smallest <= _MAX_GAP_RATIO:
         out.append(("smallest" if weight[0] < weight[best] else "equally common", smallest))
     return out
 
@@ -458,13 +459,30 @@ def _round_candidates(est: float, delta: float, limit: int = 20) -> list[float]:
     return out
 
 
-def _fit_scale(x: np.ndarray, resolution_s: float, exact_tags: bool, leap_tag: np.ndarray | None):
-    """Best grid for the times ``x`` [s]: (first round candidate that fits, else the first
-    misfit, or None), plus the estimate [s] if every candidate was too fine for the tags."""
+def _only_collisions(f: _Fit) -> bool:
+    """True if every epoch off this grid shares its slot with an epoch on it (duplicates)."""
+    bad = np.flatnonzero(f.bad)
+    if bad.size == 0 or np.any(np.abs(f.residual_s[bad]) > 0.25 * f.tau0_s):
+        return False
+    on_slots = f.k[~f.bad]
+    return bool(np.isin(f.k[bad], on_slots).all())
+
+
+def _fit_scale(x: np.ndarray, resolution_s: float, exact_tags: bool,
+               leap_tag: np.ndarray | None, steps: np.ndarray):
+    """Best grid for the times ``x`` [s] and the unresolved estimate [s] or None.
+
+    The grid is the first round candidate on which every epoch fits, unless two epochs then
+    share a slot and a rounder candidate explained all its misfits as such duplicates (that
+    one is returned, to be reported as a collision); failing all, the first misfit (or None).
+    The estimate is returned when every candidate was too fine for the tags.
+    """
     first = None
+    duplicates = None
     unresolved = None
     for spacing, est in _estimates(x, resolution_s if exact_tags else 0.0):
-        for tau0 in _round_candidates(est, resolution_s + FLOAT_SLACK_S):
+        # the estimate is good to a tag step, or to 0.1 % when stray epochs bias the mean
+        for tau0 in _round_candidates(est, max(resolution_s + FLOAT_SLACK_S, 1e-3 * est)):
             tol = grid_tolerance_s(tau0, resolution_s, exact_tags)
             if tol is None:
                 unresolved = unresolved or est
@@ -476,9 +494,15 @@ def _fit_scale(x: np.ndarray, resolution_s: float, exact_tags: bool, leap_tag: n
             if leap_tag is not None and tau0 > 1.0 + tol:
                 bad = bad | leap_tag
             fit = _Fit(tau0, tol, k.astype(np.int64), r, bad, spacing)
+            if fit.ok and spacing != "most common" and x.size < _MIN_FILL * (k[-1] + 1):
+                continue                              # too empty: not a finer grid
             if fit.ok:
-                return fit, None
+                clash = np.any((np.diff(fit.k) == 0) & (np.diff(steps) == 0))
+                return (duplicates if clash and duplicates else fit), None
+            if duplicates is None and _only_collisions(fit):
+                duplicates = fit
             first = first or fit
+    first = duplicates or first
     return first, (None if first else unresolved)
 
 
@@ -512,10 +536,11 @@ def fit_grid(day: np.ndarray, sod_s: np.ndarray, resolution_s: float, *, exact_t
     Notes
     -----
     The approximate interval is the mean of the spacings within 25 % of the most common one;
-    tau0 is the roundest value within one tag resolution of it (whole hours, minutes, 10 s,
-    seconds, ... milliseconds) on which every epoch lies within :func:`grid_tolerance_s`
+    tau0 is the roundest value within one tag resolution (or 0.1 %) of it (whole hours,
+    minutes, 10 s, seconds, ... milliseconds) on which every epoch lies within :func:`grid_tolerance_s`
     (after removing the median offset of the tags from the grid).  If the most common spacing
-    fits no grid, the smallest is tried when it divides it.  Slots are counted in UTC label
+    fits no grid, the smallest is tried (at most 100 times shorter, and a quarter of the slots
+    of its grid filled).  Slots are counted in UTC label
     seconds and the leap seconds in between are added (``elapsed = k tau0 + dTAI-UTC``); when
     the epochs span a leap second, a grid in continuous seconds (a free-running sampler) is
     fitted too and wins if its largest residual is smaller.
@@ -530,9 +555,10 @@ def fit_grid(day: np.ndarray, sod_s: np.ndarray, resolution_s: float, *, exact_t
                          column=column)
     leaps = (tai_minus_utc_s(day) - tai_minus_utc_s(day[0])).astype(np.float64)
     u = (day - day[0]) * _DAY_S + (sod - sod[0])
-    fits = {"utc": _fit_scale(u, resolution_s, exact_tags, sod >= _DAY_S)}
+    fits = {"utc": _fit_scale(u, resolution_s, exact_tags, sod >= _DAY_S, leaps)}
     if leaps.any():
-        fits["continuous"] = _fit_scale(u + leaps, resolution_s, exact_tags, None)
+        fits["continuous"] = _fit_scale(u + leaps, resolution_s, exact_tags, None,
+                                        np.zeros_like(leaps))
     unresolved = fits["utc"][1]
     fits = {name: f for name, (f, _) in fits.items()}
     good = [(float(np.max(np.abs(f.residual_s))), i, name, f)
