@@ -145,6 +145,22 @@ def test_bom_crlf_blanks_spaces_quotes_and_case():
         np.testing.assert_array_equal(m.elapsed_s, ref.elapsed_s)
 
 
+def test_indented_rows_and_blank_lines_of_spaces():
+    # more than 1000 indented lines take the byte-counting route of the blank-line check
+    rows = long_text(600).splitlines(keepends=True)
+    text = rows[0] + "".join("  " + r for r in rows[1:700]) + "   \n\t\n" + "".join(rows[700:])
+    m = parse(text)
+    assert m.n_epochs == 600 and np.isfinite(m.phase_s).all()
+    with pytest.raises(InputError) as exc:
+        parse(text.replace("  60676.000000,B", "  60676.000000,B?", 1))
+    assert exc.value.row == 3
+    small = rows[0] + "  " + rows[1] + " \t \n" + "".join(rows[2:9])
+    assert parse(small).n_epochs == 4
+    with pytest.raises(InputError) as exc:
+        parse(small.replace(rows[5], rows[5].replace("e-09", "x")))
+    assert exc.value.row == 7                     # header, indented row, blank line, rows 2-4
+
+
 def test_blank_lines_keep_line_numbers():
     text = HEADER + "60676.0,A,R,1e-9\n\n\n60676.0,B,R,xyz\n"
     with pytest.raises(InputError) as exc:

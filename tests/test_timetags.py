@@ -12,7 +12,8 @@ import pytest
 from ensemble.errors import InputError
 from ensemble.io import timetags as tt
 
-MJD0 = dt.date(1858, 11, 17)  # Cross-check: MJD = JD - 2 400 000.5, MJD 0 = 1858-11-17 (domain.md b)
+# Cross-check: MJD = JD - 2 400 000.5, MJD 0 = 1858-11-17 (domain.md b)
+MJD0 = dt.date(1858, 11, 17)
 
 
 def mjd_of(year: int, month: int, day: int) -> int:

@@ -145,7 +145,7 @@ def _frame(table: Table, text_cols: list[int], path: str):
         frame = pd.read_csv(io.StringIO(table.body), na_values={i: [""] for i in float_cols},
                             dtype={i: (str if i in text_cols else np.float64) for i in range(n)},
                             **common)
-        floats = {i: _checked(frame[i].to_numpy(dtype=np.float64), None) for i in float_cols}
+        floats = {i: _checked(frame[i].to_numpy(dtype=np.float64)) for i in float_cols}
     except ValueError:
         frame = pd.read_csv(io.StringIO(table.body), dtype=str, **common)
         floats = {i: _slow_floats(frame[i]) for i in float_cols}
@@ -155,7 +155,7 @@ def _frame(table: Table, text_cols: list[int], path: str):
     return frame, floats
 
 
-def _checked(values: np.ndarray, text) -> tuple:
+def _checked(values: np.ndarray) -> tuple:
     """(values, first non-finite index or -1, reason) for parsed floats (NaN = empty)."""
     nonfinite = np.isinf(values)
     if nonfinite.any():

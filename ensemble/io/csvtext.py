@@ -166,8 +166,7 @@ def split(data: bytes, path: str) -> Table:
     ends = np.concatenate((nl, [arr.size]))
     if ends[-1] == starts[-1]:                             # the file ends with a newline
         starts, ends = starts[:-1], ends[:-1]
-    empty = ends == starts
-    blank = empty | (_per_line((arr != 32) & (arr != 9) & (arr != 10), starts, empty) == 0)
+    blank = _blank_lines(data, arr, starts, ends)
     header_line = data[: ends[0]].decode("utf-8")
     if blank[0]:
         raise InputError(f"line 1 is empty; the first line must be the header, e.g. {HEADER_HINT}",
@@ -193,7 +192,7 @@ def split(data: bytes, path: str) -> Table:
     if quoted:
         counts = _quoted_field_counts(data, starts, ends, path)
     else:
-        counts = _per_line(arr == 44, starts, empty) + 1
+        counts = _per_line(arr == 44, nl, starts.size) + 1
     wrong = ~blank & (counts != n)
     wrong[0] = False
     if wrong.any():
@@ -204,11 +203,26 @@ def split(data: bytes, path: str) -> Table:
     return Table(names, line_no, body, quoted)
 
 
-def _per_line(mask: np.ndarray, starts: np.ndarray, empty: np.ndarray) -> np.ndarray:
-    """Number of True bytes of ``mask`` on each line (lines begin at ``starts``)."""
-    counts = np.add.reduceat(mask.view(np.uint8), starts, dtype=np.int64)
-    counts[empty] = 0                         # reduceat returns one element for empty segments
-    return counts
+def _per_line(mask: np.ndarray, newlines: np.ndarray, n_lines: int) -> np.ndarray:
+    """Number of True bytes of ``mask`` on each line (``newlines``: positions of the LFs)."""
+    line = np.searchsorted(newlines, np.flatnonzero(mask))   # LFs before each byte
+    return np.bincount(line, minlength=n_lines)[:n_lines]
+
+
+def _blank_lines(data: bytes, arr: np.ndarray, starts: np.ndarray, ends: np.ndarray) -> np.ndarray:
+    """True for lines that are empty or hold only spaces and tabs (the CSV parser skips them)."""
+    empty = ends == starts
+    first = arr[np.minimum(starts, arr.size - 1)]
+    maybe = np.flatnonzero(~empty & ((first == 32) | (first == 9)))
+    blank = empty.copy()
+    if maybe.size > 1000:                   # many indented lines: count text bytes per line
+        nl = np.flatnonzero(arr == 10)
+        text = (arr != 32) & (arr != 9) & (arr != 10)
+        blank |= _per_line(text, nl, starts.size) == 0
+    else:
+        for i in maybe:
+            blank[i] = not data[starts[i]:ends[i]].strip(b" \t")
+    return blank
 
 
 def _quoted_field_counts(data: bytes, starts, ends, path: str) -> np.ndarray:

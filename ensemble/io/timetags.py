@@ -365,7 +365,8 @@ class Grid:
     spacing: str
 
 
-def grid_tolerance_s(tau0_s: float, resolution_s: float, exact_tags: bool = False) -> float | None:
+def grid_tolerance_s(tau0_s: float, resolution_s: float,
+                     exact_tags: bool = False) -> float | None:
     """Largest accepted distance of a tag from its grid slot [s], or None if tau0 is unusable.
 
     * tau0 a whole number of resolution steps, for exact (ISO) tags or MJD steps of whole
@@ -447,9 +448,8 @@ def _round_candidates(est: float, delta: float, limit: int = 20) -> list[float]:
     out: list[float] = []
     for step in _ROUND_STEPS_S:
         lo, hi = np.ceil((est - delta) / step), np.floor((est + delta) / step)
-        if hi < lo:
-            continue
-        m = np.arange(lo, hi + 1)
+        m = np.round(est / step) + np.arange(-limit, limit + 1)
+        m = m[(m >= lo) & (m <= hi)]
         m = m[np.argsort(np.abs(m * step - est), kind="stable")][:limit]
         for v in np.round(m * step, 3):
             if v > 0 and v not in out:
@@ -506,7 +506,7 @@ def _fit_scale(x: np.ndarray, resolution_s: float, exact_tags: bool,
     return first, (None if first else unresolved)
 
 
-def fit_grid(day: np.ndarray, sod_s: np.ndarray, resolution_s: float, *, exact_tags: bool = True,
+def fit_grid(day: np.ndarray, sod_s: np.ndarray, resolution_s: float, *, exact_tags: bool = False,
              path: str | None = None, rows: np.ndarray | None = None, texts=None,
              column: str = "mjd") -> Grid:
     """Find tau0 and place every epoch on the grid k * tau0 from the first epoch.
@@ -537,12 +537,12 @@ def fit_grid(day: np.ndarray, sod_s: np.ndarray, resolution_s: float, *, exact_t
     -----
     The approximate interval is the mean of the spacings within 25 % of the most common one;
     tau0 is the roundest value within one tag resolution (or 0.1 %) of it (whole hours,
-    minutes, 10 s, seconds, ... milliseconds) on which every epoch lies within :func:`grid_tolerance_s`
-    (after removing the median offset of the tags from the grid).  If the most common spacing
-    fits no grid, the smallest is tried (at most 100 times shorter, and a quarter of the slots
-    of its grid filled).  Slots are counted in UTC label
-    seconds and the leap seconds in between are added (``elapsed = k tau0 + dTAI-UTC``); when
-    the epochs span a leap second, a grid in continuous seconds (a free-running sampler) is
+    minutes, 10 s, seconds, ... milliseconds) on which every epoch lies within
+    :func:`grid_tolerance_s` (after removing the median offset of the tags from the grid).  If
+    the most common spacing fits no grid, the smallest is tried (at most 100 times shorter, and
+    a quarter of the slots of its grid filled).  Slots are counted in UTC label seconds and the
+    leap seconds in between are added (``elapsed = k tau0 + dTAI-UTC``); when the epochs span
+    a leap second, a grid in continuous seconds (a free-running sampler) is
     fitted too and wins if its largest residual is smaller.
     """
     day = np.asarray(day, dtype=np.int64)
