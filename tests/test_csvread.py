@@ -230,7 +230,7 @@ BAD = [
     ("local offset", "time,clock,reference,phase\n2026-03-01T13:00:00+01:00,A,R,1e-9\n", None,
      "not UTC", 2, "time"),
     ("duplicate row", GOOD + "60676.041667,A,R,1e-9\n", None,
-     r"clock 'A' at epoch '60676.041667' appears twice \(rows 4 and 8\)", 8, "mjd"),
+     r"clock 'A' at epoch '60676.041667' appears twice \(rows 4 and 8\)", 8, "clock"),
     ("two references", GOOD + "60676.125000,A,R,1e-9\n60676.125000,B,A,1e-9\n", None,
      r"reference 'A' differs from 'R' named at the same epoch in row 8", 9, "reference"),
     ("self with phase", GOOD + "60676.125000,R,R,1e-12\n", None, "measured against itself", 8,

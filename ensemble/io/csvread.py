@@ -333,7 +333,7 @@ def _parse_long(table: Table, keys: list[str], path: str, reference: str | None,
         grid = None
     n_clk = len(clocks)
     row_tag = np.asarray(tuniq, dtype=object)[tcodes]
-    _duplicates(epoch * n_clk + cidx, line_no, problems, tcol, names[tcol], row_tag, clocks, cidx)
+    _duplicates(epoch * n_clk + cidx, line_no, problems, ccol, names[ccol], row_tag, clocks, cidx)
     ref_of_epoch = _one_reference(epoch, ridx, line_no, problems, rcol, names[rcol], clocks,
                                   label.size)
     problems.raise_first()
