@@ -361,3 +361,27 @@ def test_row_order_does_not_matter(data):
     assert np.all(np.diff(a.mjd) > 0) and np.all(np.diff(a.elapsed_s) > 0)
     assert np.all(a.phase_s[np.arange(a.n_epochs), a.reference] == 0.0)
     np.testing.assert_array_equal(a.elapsed_s % a.tau0_s, 0.0)
+
+
+# --------------------------------------------------------------------------- warnings
+def test_warnings_are_logged_only_for_good_files(caplog):
+    gappy = HEADER + "".join(f"{60676 + k * HOUR_D:.6f},{c},R,1e-9\n"
+                             for k in (0, 1, 3, 5, 7, 9) for c in "AB")
+    with caplog.at_level("WARNING", logger="ensemble"):
+        m = parse(gappy)
+    assert m.tau0_s == 3600.0
+    assert [r.getMessage() for r in caplog.records] == [
+        "m.csv: warning: the most common spacing of the epochs fits no grid; the smallest one, "
+        "3600 s, is taken as the sampling interval"]
+    caplog.clear()
+    with caplog.at_level("WARNING", logger="ensemble"), pytest.raises(InputError):
+        parse(gappy + "60676.375000,A,R,1e-9\n")              # a duplicate: no warning
+    assert caplog.records == []
+
+
+def test_tags_beyond_the_leap_table_are_read_with_a_warning(caplog):
+    with caplog.at_level("WARNING", logger="ensemble"):
+        m = parse(long_text(3, start=61300.0))                # 2026-09-17
+    assert m.n_epochs == 3
+    assert len(caplog.records) == 1
+    assert "beyond the leap-second table (valid before 2026-07-01)" in caplog.records[0].getMessage()

@@ -15,6 +15,7 @@ long-form file of 100 clocks x 8760 hourly epochs reads in well under a second
 from __future__ import annotations
 
 import io
+import logging
 import os
 import re
 
@@ -34,6 +35,8 @@ CLOCK_ID_RULE = "1 to 32 characters from A-Z a-z 0-9 _ . -"
 _CLOCK_ID = re.compile(r"[A-Za-z0-9_.\-]{1,32}")
 #: Largest accepted |clock - reference|: more is almost surely a unit error [s].
 MAX_ABS_PHASE_S = 1.0
+
+log = logging.getLogger(__name__)
 
 _LONG_KEYS = ("clock", "reference", "phase")
 _TIME_KEYS = ("mjd", "time")
@@ -97,9 +100,13 @@ def _parse_bytes(data: bytes, path: str, reference: str | None) -> Measurements:
         raise InputError(f"--reference {reference!r} is not a clock identifier ({CLOCK_ID_RULE})",
                          path=path)
     if any(k in _LONG_KEYS for k in keys):
-        meas = _parse_long(table, keys, path, reference, sha)
+        meas, grid = _parse_long(table, keys, path, reference, sha)
     else:
-        meas = _parse_wide(table, keys, path, reference, sha)
+        meas, grid = _parse_wide(table, keys, path, reference, sha)
+    # warnings only once the whole file is good, so a bad file gives exactly one line
+    if grid.spacing == "smallest":
+        log.warning("%s: warning: the most common spacing of the epochs fits no grid; the "
+                    "smallest one, %g s, is taken as the sampling interval", path, grid.tau0_s)
     timetags.warn_if_beyond_table(float(meas.mjd[-1]), path)
     return meas
 
@@ -228,11 +235,13 @@ def _epochs(tags, codes, line_no, uniques):
             [uniques[j] for j in pick], inv[codes])
 
 
-def _measure(path, sha, clocks, label, grid, phase, ref_idx) -> Measurements:
+def _measure(path, sha, clocks, label, grid, phase, ref_idx):
+    """(Measurements, grid); the reference's own column set to 0."""
     phase = np.ascontiguousarray(phase, dtype=np.float64)
     phase[np.arange(label.size), ref_idx] = 0.0
-    return Measurements(tuple(clocks), np.asarray(label, dtype=np.float64), grid.elapsed_s,
+    meas = Measurements(tuple(clocks), np.asarray(label, dtype=np.float64), grid.elapsed_s,
                         phase, np.asarray(ref_idx, dtype=np.int64), float(grid.tau0_s), path, sha)
+    return meas, grid
 
 
 def _check_values(values, bad, reason, line_no, problems, position, column) -> None:
@@ -256,8 +265,7 @@ def _tag_problems(tags, codes, line_no, problems, position, column) -> None:
 
 
 # --------------------------------------------------------------------------- long form
-def _parse_long(table: Table, keys: list[str], path: str, reference: str | None,
-                sha: str) -> Measurements:
+def _parse_long(table: Table, keys: list[str], path: str, reference: str | None, sha: str):
     import pandas as pd
 
     names = table.names
@@ -381,8 +389,7 @@ def _one_reference(epoch, ridx, line_no, problems, position, column, clocks, n_e
 
 
 # --------------------------------------------------------------------------- wide form
-def _parse_wide(table: Table, keys: list[str], path: str, reference: str | None,
-                sha: str) -> Measurements:
+def _parse_wide(table: Table, keys: list[str], path: str, reference: str | None, sha: str):
     import pandas as pd
 
     names = table.names

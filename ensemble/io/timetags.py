@@ -570,9 +570,6 @@ def fit_grid(day: np.ndarray, sod_s: np.ndarray, resolution_s: float, *, exact_t
         clash = _collision(f, steps, path, rows, texts, column)
         if clash is not None:
             raise clash
-        if f.spacing == "smallest":
-            log.warning("%s: the most common spacing of the epochs fits no grid; using the "
-                        "smallest spacing, %g s, as the sampling interval", path, f.tau0_s)
         log.debug("%s: tau0 = %g s on the %s grid (tolerance %g s)", path, f.tau0_s, scale,
                   f.tol_s)
         return Grid(f.tau0_s, f.k, (f.k * f.tau0_s + steps).astype(np.float64), f.tol_s, scale,
