@@ -385,3 +385,37 @@ def test_tags_beyond_the_leap_table_are_read_with_a_warning(caplog):
     assert m.n_epochs == 3
     assert len(caplog.records) == 1
     assert "beyond the leap-second table (valid before 2026-07-01)" in caplog.records[0].getMessage()
+
+
+def test_a_long_gap_is_a_logged_warning(caplog):
+    text = long_text(3) + "60776.000000,A,R,1e-9\n"            # 100 days later
+    with caplog.at_level("WARNING", logger="ensemble"):
+        m = parse(text)
+    assert m.elapsed_s[-1] == 100 * 86400.0
+    assert [r.getMessage() for r in caplog.records] == [
+        "m.csv: warning: no epochs for 99.92 days between 2025-01-01T02:00:00Z and "
+        "2025-04-11T00:00:00Z; check the tags"]
+
+
+def test_mutated_files_fail_only_with_input_errors():
+    # seeded byte mutations of the examples: every outcome is a result or one InputError line
+    rng = np.random.default_rng(20261201)
+    sources = [((DATA_DIR / "example_long.csv").read_bytes(), None),
+               ((DATA_DIR / "example_wide.csv").read_bytes(), "HM1")]
+    alphabet = b"0123456789.,-+eE \n\r\t\"aHMRZT:\xc3\xa9\x00"
+    for trial in range(300):
+        content, reference = sources[trial % 2]
+        b = bytearray(content)
+        for _ in range(int(rng.integers(1, 6))):
+            pos = int(rng.integers(0, len(b)))
+            op = rng.integers(0, 3)
+            if op == 0:
+                b[pos] = alphabet[rng.integers(0, len(alphabet))]
+            elif op == 1:
+                del b[pos:pos + int(rng.integers(1, 20))]
+            else:
+                b[pos:pos] = bytes(alphabet[rng.integers(0, len(alphabet))] for _ in range(3))
+        try:
+            parse(bytes(b), reference=reference)
+        except InputError as exc:
+            assert len(str(exc).splitlines()) == 1

@@ -168,6 +168,7 @@ def _mjd(values, digits=6):
 
 def test_hourly_six_decimal_mjd():
     g = _mjd(60676 + np.arange(200) / 24)
+    # Cross-check: the tags were written from k hours; six decimals round them by <= 0.0432 s
     assert g.tau0_s == 3600.0
     assert g.elapsed_s.tolist() == (3600.0 * np.arange(200)).tolist()
 
@@ -209,11 +210,13 @@ def test_leap_second_tag_in_an_hourly_series_is_refused():
 def test_gaps_and_the_smallest_spacing():
     k = np.array([0, 1, 3, 5, 7, 9, 11, 13])          # mostly 2 h apart, one 1 h spacing
     g = _mjd(60676 + k / 24)
+    # Cross-check: the slots the tags were written from
     assert g.tau0_s == 3600.0 and g.spacing == "smallest"
     assert g.slot.tolist() == k.tolist()
 
 
 def test_roundest_interval_is_chosen():
+    # Cross-check: the tags are written from these intervals (8 or 10 decimals of a day)
     for tau0 in (0.5, 1.0, 12.5, 60.0, 300.0, 86400.0):
         n = 40
         digits = 10 if tau0 < 1 else 8

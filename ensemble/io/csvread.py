@@ -28,7 +28,7 @@ from .measurements import Measurements
 from .summary import summarize
 
 __all__ = ["read_measurements", "parse_measurements", "summarize", "CLOCK_ID_RULE",
-           "MAX_ABS_PHASE_S"]
+           "MAX_ABS_PHASE_S", "LONG_GAP_S"]
 
 #: Clock identifiers: 1 to 32 characters from A-Z a-z 0-9 _ . - (contract section 1).
 CLOCK_ID_RULE = "1 to 32 characters from A-Z a-z 0-9 _ . -"
@@ -107,8 +107,22 @@ def _parse_bytes(data: bytes, path: str, reference: str | None) -> Measurements:
     if grid.spacing == "smallest":
         log.warning("%s: warning: the most common spacing of the epochs fits no grid; the "
                     "smallest one, %g s, is taken as the sampling interval", path, grid.tau0_s)
+    _warn_long_gap(meas, path)
     timetags.warn_if_beyond_table(float(meas.mjd[-1]), path)
     return meas
+
+
+#: A gap between consecutive epochs longer than this is reported (a mistyped year?) [s].
+LONG_GAP_S = 30 * 86400.0
+
+
+def _warn_long_gap(meas: Measurements, path: str) -> None:
+    gaps = np.diff(meas.elapsed_s)
+    if gaps.size and gaps.max() > LONG_GAP_S:
+        i = int(np.argmax(gaps))
+        log.warning("%s: warning: no epochs for %.4g days between %s and %s; check the tags",
+                    path, gaps[i] / 86400.0, timetags.format_iso_utc(meas.mjd[i]),
+                    timetags.format_iso_utc(meas.mjd[i + 1]))
 
 
 # --------------------------------------------------------------------------- helpers
