@@ -116,6 +116,11 @@ def test_leap_second_hourly_interval_is_3601_s():
     mjd_text = HEADER + "".join(f"{v},A,R,1e-9\n{v},B,R,2e-9\n" for v in
                                 ("57753.916667", "57753.958333", "57754.000000", "57754.041667"))
     assert np.diff(parse(mjd_text).elapsed_s).tolist() == [3600.0, 3601.0, 3600.0]
+    # MJD labels are the values read, also in the last seconds of a day with a leap second
+    one_s = HEADER + "".join(f"{57753 + (86397 + k) / 86400:.6f},{c},R,1e-9\n"
+                             for k in range(6) for c in "AB")
+    m = parse(one_s)
+    assert m.mjd.tolist() == [float(f"{57753 + (86397 + k) / 86400:.6f}") for k in range(6)]
 
 
 def test_leap_second_tag_23_59_60_accepted():

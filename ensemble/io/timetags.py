@@ -200,6 +200,8 @@ class ParsedTags:
     exact : bool
         True for ISO times: a tag is the sampling instant to its last digit, so tau0 must be a
         whole number of steps.  False for MJD text, a decimal-day rounding of the instant.
+    mjd : ndarray of float64, shape (n,)
+        MJD labels: the value read for MJD text; :func:`label_mjd` of an ISO time. [d]
     """
 
     day: np.ndarray
@@ -207,11 +209,7 @@ class ParsedTags:
     error: list
     resolution_s: float
     exact: bool
-
-    @property
-    def mjd(self) -> np.ndarray:
-        """MJD labels [d] (see :func:`label_mjd`)."""
-        return label_mjd(self.day, self.sod_s)
+    mjd: np.ndarray
 
 
 def _check_range(day: np.ndarray, ok: np.ndarray, errors: dict, texts) -> None:
@@ -258,7 +256,8 @@ def parse_mjd_texts(texts) -> ParsedTags:
     lengths = s.str.len().to_numpy()
     decimals = np.where(ok & (dot >= 0), lengths - dot - 1, 0)
     dmax = int(decimals.max()) if decimals.size else 0
-    return ParsedTags(day, sod, sorted(errors.items()), _DAY_S * 10.0 ** -min(dmax, 15), False)
+    return ParsedTags(day, sod, sorted(errors.items()), _DAY_S * 10.0 ** -min(dmax, 15), False,
+                      values)
 
 
 def parse_iso_texts(texts) -> ParsedTags:
@@ -310,8 +309,8 @@ def parse_iso_texts(texts) -> ParsedTags:
     sod = hour * 3600.0 + minute * 60.0 + second + frac
     digits = frac_txt.str.len().to_numpy()
     dmax = int(digits[matched].max()) if matched.any() else 0
-    return ParsedTags(day.astype(np.int64), np.where(ok, sod, 0.0), sorted(errors.items()),
-                      10.0 ** -dmax, True)
+    day, sod = day.astype(np.int64), np.where(ok, sod, 0.0)
+    return ParsedTags(day, sod, sorted(errors.items()), 10.0 ** -dmax, True, label_mjd(day, sod))
 
 
 def _iso_reason(text: str) -> str:
