@@ -389,7 +389,8 @@ def test_tags_beyond_the_leap_table_are_read_with_a_warning(caplog):
         m = parse(long_text(3, start=61300.0))                # 2026-09-17
     assert m.n_epochs == 3
     assert len(caplog.records) == 1
-    assert "beyond the leap-second table (valid before 2026-07-01)" in caplog.records[0].getMessage()
+    message = caplog.records[0].getMessage()
+    assert "beyond the leap-second table (valid before 2026-07-01)" in message
 
 
 def test_a_long_gap_is_a_logged_warning(caplog):

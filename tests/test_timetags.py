@@ -1,4 +1,4 @@
-"""Time tags: leap-second table, calendar, ISO and MJD parsing, the sampling grid, intervals."""
+"""Time tags and the sampling grid: leap seconds, calendar, ISO and MJD parsing, intervals."""
 
 from __future__ import annotations
 
@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 
 from ensemble.errors import InputError
+from ensemble.io import sampling as sp
 from ensemble.io import timetags as tt
 
 # Cross-check: MJD = JD - 2 400 000.5, MJD 0 = 1858-11-17 (domain.md b)
@@ -142,14 +143,14 @@ def test_mjd_text_resolution_and_refusals():
 # --------------------------------------------------------------------------- tolerance
 def test_tolerance_and_digits():
     # Cross-check: one unit of the 6th decimal of a day is 86400e-6 s = 0.0864 s (arithmetic)
-    assert tt.grid_tolerance_s(3600.0, 0.0864) == pytest.approx(0.0864 + tt.FLOAT_SLACK_S)
-    assert tt.grid_tolerance_s(3600.0, 1.0, exact_tags=True) == pytest.approx(0.5, abs=1e-5)
-    assert tt.grid_tolerance_s(1.0, 1.0, exact_tags=True) == 0.25    # capped at tau0 / 4
-    assert tt.grid_tolerance_s(12.5, 1.0, exact_tags=True) is None   # 12.5 s not whole seconds
-    assert tt.grid_tolerance_s(0.1, 0.0864) is None                  # 6 decimals too coarse
+    assert sp.grid_tolerance_s(3600.0, 0.0864) == pytest.approx(0.0864 + tt.FLOAT_SLACK_S)
+    assert sp.grid_tolerance_s(3600.0, 1.0, exact_tags=True) == pytest.approx(0.5, abs=1e-5)
+    assert sp.grid_tolerance_s(1.0, 1.0, exact_tags=True) == 0.25    # capped at tau0 / 4
+    assert sp.grid_tolerance_s(12.5, 1.0, exact_tags=True) is None   # 12.5 s not whole seconds
+    assert sp.grid_tolerance_s(0.1, 0.0864) is None                  # 6 decimals too coarse
     # Cross-check: d decimals suffice when 86400 * 10**-d <= tau0 / 4 (arithmetic)
     for tau0, d in ((0.5, 6), (1.0, 6), (10.0, 5), (60.0, 4), (300.0, 4), (3600.0, 2)):
-        assert tt.digits_needed(tau0) == d
+        assert sp.digits_needed(tau0) == d
         assert 86400 * 10.0 ** -d <= tau0 / 4 < 86400 * 10.0 ** -(d - 1)
 
 
@@ -157,13 +158,13 @@ def test_tolerance_and_digits():
 def _iso(texts):
     p = tt.parse_iso_texts(texts)
     assert p.error == []
-    return tt.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=True, column="time")
+    return sp.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=True, column="time")
 
 
 def _mjd(values, digits=6):
     p = tt.parse_mjd_texts([f"{v:.{digits}f}" for v in values])
     assert p.error == []
-    return tt.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=False)
+    return sp.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=False)
 
 
 def test_hourly_six_decimal_mjd():
@@ -203,7 +204,7 @@ def test_leap_second_tag_in_an_hourly_series_is_refused():
     p = tt.parse_iso_texts(["2016-12-31T22:00:00Z", "2016-12-31T23:00:00Z",
                             "2016-12-31T23:59:60Z", "2017-01-01T01:00:00Z"])
     with pytest.raises(InputError, match="inside a leap second"):
-        tt.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=True, rows=np.arange(2, 6),
+        sp.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=True, rows=np.arange(2, 6),
                     column="time")
 
 
@@ -231,7 +232,7 @@ def test_off_grid_epoch_named_by_first_row_in_file():
     p = tt.parse_mjd_texts([f"{v:.6f}" for v in values])
     rows = np.array([2, 3, 4, 20, 5, 6, 7, 8, 9, 10])   # epoch 3 sits on a late line of the file
     with pytest.raises(InputError) as exc:
-        tt.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=False, path="f.csv", rows=rows)
+        sp.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=False, path="f.csv", rows=rows)
     assert exc.value.row == 8                     # epoch 7 is on the earlier line
     assert "+120 s from the 3600 s sampling grid" in str(exc.value)
 
@@ -240,7 +241,7 @@ def test_two_tags_on_one_slot():
     p = tt.parse_iso_texts(["2025-01-01T00:00:00Z", "2025-01-01T01:00:00Z",
                             "2025-01-01T01:00:00.020Z", "2025-01-01T02:00:00Z"])
     with pytest.raises(InputError, match=r"\(row 3\) fall on the same slot") as exc:
-        tt.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=True, path="f.csv",
+        sp.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=True, path="f.csv",
                     rows=np.array([2, 3, 9, 4]), column="time")
     assert exc.value.row == 9
 
@@ -248,12 +249,12 @@ def test_two_tags_on_one_slot():
 def test_too_coarse_mjd_text_says_how_many_digits():
     p = tt.parse_mjd_texts([f"{60676 + k / 86400:.5f}" for k in range(100)])
     with pytest.raises(InputError, match="at least 6 decimals"):
-        tt.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=False)
+        sp.fit_grid(p.day, p.sod_s, p.resolution_s, exact_tags=False)
 
 
 def test_one_epoch_is_not_enough():
     with pytest.raises(InputError, match="at least two"):
-        tt.fit_grid(np.array([60676]), np.array([0.0]), 1.0)
+        sp.fit_grid(np.array([60676]), np.array([0.0]), 1.0)
 
 
 # --------------------------------------------------------------------------- appends

@@ -23,6 +23,7 @@ import numpy as np
 
 from ..errors import InputError
 from . import timetags
+from .sampling import fit_grid
 from .csvtext import Table, decode, read_source, sha256_hex, split
 from .measurements import Measurements
 from .summary import summarize
@@ -348,7 +349,7 @@ def _parse_long(table: Table, keys: list[str], path: str, reference: str | None,
     day, sod, label, ep_line, ep_text, epoch = _epochs(tags, tcodes, line_no, tuniq)
     problems = _Problems(path)
     try:
-        grid = timetags.fit_grid(day, sod, tags.resolution_s, exact_tags=tags.exact, path=path,
+        grid = fit_grid(day, sod, tags.resolution_s, exact_tags=tags.exact, path=path,
                                  rows=ep_line, texts=ep_text, column=names[tcol])
     except InputError as exc:
         problems.add_error(exc, tcol)
@@ -463,7 +464,7 @@ def _parse_wide(table: Table, keys: list[str], path: str, reference: str | None,
         raise InputError(f"epoch {tuniq[tcodes[i]]!r} appears twice (rows {int(line_no[j])} and "
                          f"{int(line_no[i])}); keep one row per epoch", path=path,
                          row=int(line_no[i]), column=names[0])
-    grid = timetags.fit_grid(day, sod, tags.resolution_s, exact_tags=tags.exact, path=path,
+    grid = fit_grid(day, sod, tags.resolution_s, exact_tags=tags.exact, path=path,
                              rows=ep_line, texts=ep_text, column=names[0])
     phase = np.empty_like(phase_rows)
     phase[epoch] = phase_rows
