@@ -140,7 +140,7 @@ class _Steering:
 
 
 def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
-                    keep: bool = True, progress: bool = False) -> RunResult:
+                    keep: bool = True, progress: bool = False, steer: bool = True) -> RunResult:
     """Run the ensemble over all epochs of ``meas``.
 
     Parameters
@@ -156,6 +156,8 @@ def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
         Keep every epoch's arrays in memory for the result (False: only blocks to ``sink``).
     progress : bool
         Show a progress bar (only when stderr is a terminal).
+    steer : bool
+        Compute the steering advice (the archive's /steering table needs it).
 
     Returns
     -------
@@ -166,7 +168,7 @@ def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
     setups, report = build_setups(meas.phase_s, meas.elapsed_s, meas.reference, meas.tau0_s,
                                   meas.clocks, clocks_cfg, cfg.ensemble)
     engine = TimeScaleEngine(meas.clocks, meas.tau0_s, setups, cfg.ensemble, cfg.detection)
-    steering = _Steering(cfg, meas, engine) if "steering" in cfg.sections else None
+    steering = _Steering(cfg, meas, engine) if steer and "steering" in cfg.sections else None
     t_n, n = meas.n_epochs, meas.n_clocks
     keys = ("offset", "frequency", "drift", "weight", "state", "zscore")
     kept = {k: np.empty((t_n, n), dtype=np.int8 if k == "state" else float) for k in keys} \
@@ -174,6 +176,7 @@ def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
     sigma = np.empty(t_n) if keep else None
     block = _new_block(BLOCK_EPOCHS, n)
     b = 0
+    steer_parts = []
     bar = _progress(t_n, progress)
     out = None
     for k in range(t_n):
@@ -186,10 +189,11 @@ def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
                 kept[key][k] = out[key]
             sigma[k] = out["scale_sigma"]
         if sink is not None:
-            _fill(block, b, float(meas.mjd[k]), out)
+            _fill(block, b, meas, k, out)
             b += 1
             if b == BLOCK_EPOCHS:
                 cols = steering.take() if steering else None
+                steer_parts.append(cols)
                 sink(block, cols)
                 block = _new_block(BLOCK_EPOCHS, n)
                 b = 0
@@ -197,10 +201,10 @@ def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
             bar.update(min(256, t_n - k))
     if bar is not None:
         bar.close()
-    steer_parts = []
     if sink is not None and (b or steering is not None):
-        sink({key: value[:b] for key, value in block.items()},
-             steering.take() if steering else None)
+        cols = steering.take() if steering else None
+        steer_parts.append(cols)
+        sink({key: value[:b] for key, value in block.items()}, cols)
     elif steering is not None:
         steer_parts.append(steering.take())
     steer_cols = _concat(steer_parts)
@@ -231,10 +235,22 @@ _BLOCK = {"offset_s": "offset", "frequency": "frequency", "drift_per_s": "drift"
 
 
 def _extra_datasets():
-    """The engine's own per-epoch figures written beside the contract datasets."""
+    """The engine's own per-epoch figures and the measurements, beside the contract datasets.
+
+    Keeping the measurements makes the archive self-contained: the scale can be re-formed from
+    it alone (leave-one-out assessment, audits).
+    """
     from .archive import EpochDataset
 
-    return (EpochDataset("/filter/scale_step_sigma", "f8", False, "s",
+    return (EpochDataset("/measurements/phase", "f8", True, "s",
+                         "measured time difference clock - reference, as read; NaN where "
+                         "missing"),
+            EpochDataset("/measurements/reference", "i4", False, "1",
+                         "column (in /clocks/name) of each epoch's measurement reference", fill=-1),
+            EpochDataset("/measurements/elapsed", "f8", False, "s",
+                         "time since the first epoch of the archive on the continuous time axis "
+                         "(leap seconds counted)"),
+            EpochDataset("/filter/scale_step_sigma", "f8", False, "s",
                          "estimated standard deviation of the scale's prediction error over "
                          "the last sampling interval, from the clocks' noise levels and weights"),
             EpochDataset("/filter/residual_z", "f8", True, "1",
@@ -244,14 +260,20 @@ def _extra_datasets():
 
 def _new_block(size: int, n: int) -> dict:
     block = {"mjd": np.empty(size), "filter/scale_step_sigma": np.empty(size),
-             "state": np.empty((size, n), dtype=np.int8)}
-    for key in ("offset_s", "frequency", "drift_per_s", "weight", "filter/residual_z"):
+             "state": np.empty((size, n), dtype=np.int8),
+             "measurements/reference": np.empty(size, dtype=np.int32),
+             "measurements/elapsed": np.empty(size)}
+    for key in ("offset_s", "frequency", "drift_per_s", "weight", "filter/residual_z",
+                "measurements/phase"):
         block[key] = np.empty((size, n))
     return block
 
 
-def _fill(block: dict, b: int, mjd: float, out: dict) -> None:
-    block["mjd"][b] = mjd
+def _fill(block: dict, b: int, meas: Measurements, k: int, out: dict) -> None:
+    block["mjd"][b] = meas.mjd[k]
+    block["measurements/phase"][b] = meas.phase_s[k]
+    block["measurements/reference"][b] = meas.reference[k]
+    block["measurements/elapsed"][b] = meas.elapsed_s[k]
     for key, name in _BLOCK.items():
         block[key][b] = out[name]
 
@@ -369,6 +391,7 @@ def run_to_archive(input_path, output, *, config=None, reference: str | None = N
                            units=_STARTUP_UNITS, descriptions=_STARTUP_DESCRIPTIONS)
         writer.add_run_record(os.path.basename(str(input_path)))
     result.archive = str(output)
+    result.measurements = meas
     return result
 
 

@@ -6,36 +6,57 @@ import argparse
 
 EXAMPLES = """examples:
   ensemble run demo_data/lab_demo.csv -o lab.h5
-  ensemble run wide.csv --reference HM1 -o lab.h5 --config configs/default.toml
+  ensemble run demo_data/lab_demo.csv -o lab.h5 --config configs/demo.toml --overwrite
+  ensemble run wide.csv --reference H1 -o lab.h5
+
+exit codes: 0 success; 2 bad input or configuration (one line names the file, row and column,
+and nothing is written); 1 internal error.
 """
 
 
 def add_parser(sub, parents) -> None:
     p = sub.add_parser("run", parents=parents, help="form the time scale and write the archive",
                        description="Read clock comparisons (long or wide CSV), form the ensemble "
-                                   "time scale, detect anomalies, compute steering and write "
-                                   "the HDF5 archive.  This version reads and validates the "
-                                   "input and prints a summary; it writes no archive yet.",
+                                   "time scale, detect anomalies, compute the steering advice "
+                                   "and write the HDF5 archive (atomically: an existing archive "
+                                   "is never left half-written).",
                        epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("input", metavar="INPUT", help="measurement CSV (long or wide form)")
-    p.add_argument("-o", "--output", metavar="ARCHIVE.h5", help="archive to write")
+    p.add_argument("-o", "--output", metavar="ARCHIVE.h5", required=True,
+                   help="archive to write")
     p.add_argument("--config", metavar="FILE.toml", help="configuration (defaults if omitted)")
     p.add_argument("--reference", metavar="NAME",
                    help="reference clock of a wide-form file (its column is absent or zero)")
+    p.add_argument("--overwrite", action="store_true",
+                   help="replace ARCHIVE.h5 if it exists (default: refuse)")
     p.set_defaults(func=main)
 
 
 def main(args: argparse.Namespace) -> int:
-    """Read and validate the input and print its summary (the engine is not wired in yet).
+    """Run the whole job and print a summary; bad input raises InputError (exit 2)."""
+    import logging
 
-    Bad input raises :class:`~ensemble.errors.InputError`, which the CLI turns into one line on
-    stderr and exit status 2.  Nothing is written: with ``-o`` one line says so.
-    """
-    from ..io.csvread import read_measurements, summarize
+    from ..config import load_config
+    from ..io.csvread import summarize
+    from ..pipeline import run_to_archive, summary_text
+    from ..steering.output import CAUTIONS, summarize as steering_summary
 
-    meas = read_measurements(args.input, reference=args.reference)
-    print(summarize(meas))
-    if args.output:
-        print(f"no archive written: this version reads and checks the input only; "
-              f"{args.output} was not created or changed")
+    log = logging.getLogger("ensemble")
+    cfg = load_config(args.config)
+    result = run_to_archive(args.input, args.output, config=cfg, reference=args.reference,
+                            overwrite=args.overwrite, progress=not args.quiet)
+    if not args.quiet:
+        print(summarize(result.measurements))
+        print()
+        print(summary_text(result))
+        if result.steering:
+            print()
+            print(f"steering advice for the output driven by {result.steering_clock}:")
+            for line in steering_summary(result.steering, cfg.steering):
+                print(f"  {line}")
+            print("cautions:")
+            for line in CAUTIONS:
+                print(f"  - {line}")
+    print(f"archive written: {result.archive}")
+    log.debug("configuration: %s", args.config or "defaults")
     return 0
