@@ -24,9 +24,9 @@ def run(capsys, *argv):
     return code, out, err
 
 
-def test_summary_of_the_long_example(capsys):
-    code, out, err = run(capsys, DATA_DIR / "example_long.csv")
-    assert code == 0 and err == ""
+def test_summary_of_the_long_example(capsys, tmp_path):
+    code, out, err = run(capsys, DATA_DIR / "example_long.csv", "-o", tmp_path / "lab.h5")
+    assert code == 0
     assert "clocks     4: CS1 HM1 HM2 RB1" in out
     assert "epochs     23 at tau0 = 3600 s (1 h); 1 of 24 grid slots missing" in out
     assert "2025-01-01T00:00:00Z to 2025-01-01T23:00:00Z" in out
@@ -34,13 +34,17 @@ def test_summary_of_the_long_example(capsys):
     assert re.search(r"RB1\s+22\s+95\.7 %", out)
 
 
-def test_wide_example_and_output_option_writes_nothing(capsys, tmp_path):
+def test_wide_example_writes_the_archive_and_refuses_to_overwrite(capsys, tmp_path):
     archive = tmp_path / "lab.h5"
     code, out, err = run(capsys, DATA_DIR / "example_wide.csv", "--reference", "HM1",
                          "-o", archive)
-    assert code == 0 and err == ""
-    assert "no archive written" in out.splitlines()[-1]
-    assert not archive.exists() and list(tmp_path.iterdir()) == []
+    assert code == 0
+    assert out.splitlines()[-1] == f"archive written: {archive}"
+    before = archive.read_bytes()
+    code, out, err = run(capsys, DATA_DIR / "example_wide.csv", "--reference", "HM1",
+                         "-o", archive)
+    assert code == 2 and "the archive exists" in err and len(err.splitlines()) == 1
+    assert archive.read_bytes() == before
 
 
 @pytest.mark.parametrize("name, content, reference, regex, row, column", BAD,
@@ -66,9 +70,9 @@ def test_bad_input_through_the_cli(capsys, tmp_path, name, content, reference, r
 
 
 def test_missing_input_file(capsys, tmp_path):
-    code, out, err = run(capsys, tmp_path / "nowhere.csv")
+    code, out, err = run(capsys, tmp_path / "nowhere.csv", "-o", tmp_path / "a.h5")
     assert code == 2 and "cannot read the file" in err and len(err.splitlines()) == 1
-    code, out, err = run(capsys, tmp_path)
+    code, out, err = run(capsys, tmp_path, "-o", tmp_path / "a.h5")
     assert code == 2 and "is a folder" in err
 
 
