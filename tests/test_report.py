@@ -136,17 +136,23 @@ def test_the_page_refers_to_nothing_outside_its_folder(report):
     assert not re.search(r"(https?:|//[a-z])", lowered.replace("http-equiv", ""))
 
 
-def test_days_limits_the_time_plots(lab, tmp_path):
+def test_days_limits_the_time_plots(lab, capsys, tmp_path):
+    from ensemble import open_archive
     from ensemble.report.collect import collect
 
     folder, archive = lab
+    with open_archive(archive) as a:
+        last = a.mjd[-1]
     data = collect(archive, days=3)
-    full = collect(archive)
-    assert data.mjd[0] >= full.mjd[-1] - 3 and data.mjd[-1] == full.mjd[-1]
+    assert data.mjd[0] >= last - 3 and data.mjd[-1] == last
     assert data.mjd.size == 3 * 24 + 1            # hourly epochs over the last 3 days, inclusive
+    assert data.offset_s.shape == (data.mjd.size, 5) and data.steering["mjd"][0] >= last - 3
     assert len(data.window_events) == 1            # the outlier on day 9.25; the step was at 7.5
-    index = write_report(archive, tmp_path / "recent", days=3)
-    assert "the last 3 days" in index.read_text(encoding="utf-8")
+    code = cli.main(["report", str(archive), "-o", str(tmp_path / "rep"), "--days", "3"])
+    out, err = capsys.readouterr()
+    assert code == 0
+    assert out == f"report written: {tmp_path / 'rep' / 'index.html'}\n"
+    assert "the last 3 days" in (tmp_path / "rep" / "index.html").read_text(encoding="utf-8")
 
 
 def test_the_assessment_group_is_shown(lab, tmp_path):
@@ -197,20 +203,11 @@ def test_a_failing_plot_leaves_no_partial_report(lab, monkeypatch, tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == []
 
 
-def test_a_new_report_replaces_the_previous_one(lab, report, tmp_path):
+def test_a_new_report_replaces_the_previous_one_and_stale_folders(lab, report, tmp_path):
     folder, archive = lab
     target = tmp_path / "rep"
     shutil.copytree(report[0], target)
     (target / "offsets_02.png").write_bytes(PNG_SIGNATURE)      # a page the new one lacks
-    write_report(archive, target, days=2)
-    names = sorted(p.name for p in target.iterdir())
-    assert "offsets_02.png" not in names and "index.html" in names
-    assert "the last 2 days" in (target / "index.html").read_text(encoding="utf-8")
-    assert leftovers(tmp_path, "rep") == []
-
-
-def test_stale_temporary_folders_of_ended_runs_are_removed(lab, tmp_path):
-    folder, archive = lab
     child = subprocess.Popen(["true"])
     child.wait()                                     # a pid that has ended
     stale = tmp_path / f".rep.tmp-{child.pid}-0123abcd"
@@ -218,8 +215,13 @@ def test_stale_temporary_folders_of_ended_runs_are_removed(lab, tmp_path):
     (stale / "index.html").write_text("half", encoding="utf-8")
     mine = tmp_path / f".rep.tmp-{os.getpid()}-89abcdef"   # a live process: left alone
     mine.mkdir()
-    write_report(archive, tmp_path / "rep")
+    write_report(archive, target, days=2)
+    names = sorted(p.name for p in target.iterdir())
+    assert "offsets_02.png" not in names and "index.html" in names
+    assert "the last 2 days" in (target / "index.html").read_text(encoding="utf-8")
     assert not stale.exists() and mine.exists()
+    mine.rmdir()
+    assert leftovers(tmp_path, "rep") == []
 
 
 # ------------------------------------------------------------------------------ bad input
@@ -227,14 +229,6 @@ def run_cli(capsys, *argv):
     code = cli.main(["report", *map(str, argv)])
     out, err = capsys.readouterr()
     return code, out, err
-
-
-def test_the_command_writes_the_report(lab, capsys, tmp_path):
-    folder, archive = lab
-    code, out, err = run_cli(capsys, archive, "-o", tmp_path / "rep", "--days", "5")
-    assert code == 0
-    assert out == f"report written: {tmp_path / 'rep' / 'index.html'}\n"
-    assert (tmp_path / "rep" / "index.html").is_file()
 
 
 @pytest.mark.parametrize("case", ["not-hdf5", "missing", "dir-is-file", "no-parent",

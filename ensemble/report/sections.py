@@ -79,7 +79,8 @@ def glance(data) -> str:
         listed = ", ".join(f"{esc(c['clock'])} {esc(c['state'])}" for c in others[:12])
         more = f" and {len(others) - 12} more" if len(others) > 12 else ""
         rows.append(("not active now", listed + more))
-    heavy = sorted((c for c in s["clocks"] if c.get("weight")), key=lambda c: -c["weight"])[:5]
+    heavy = sorted((c for c in s["clocks"] if (c.get("weight") or 0.0) >= 0.0005),
+                   key=lambda c: -c["weight"])[:5]
     if heavy:
         rows.append(("largest weights now", ", ".join(f"{esc(c['clock'])} {c['weight']:.3f}"
                                                       for c in heavy)))
@@ -88,6 +89,10 @@ def glance(data) -> str:
     in_window = len(data.window_events)
     rows.append(("events", f"{ev['count']} in the archive ({kinds}); {in_window} in the shown "
                            f"span"))
+    if ev["recent"]:
+        e = ev["recent"][-1]
+        rows.append(("latest event", f"{esc(e['utc'])} {esc(e['clock'])} {esc(e['kind'])} "
+                                     f"({_magnitude(e['kind'], e['magnitude'])})"))
     if data.steering is not None:
         error = np.asarray(data.steering["phase_error"], dtype=float)
         error = error[np.isfinite(error)]
@@ -100,16 +105,23 @@ def glance(data) -> str:
                                      f"\u00b1{limit:.3g}); advisory, see the cautions"))
     else:
         rows.append(("steering now", "no steering rows in the shown span"))
+    st = data.stability
+    if st is not None:
+        parts = []
+        for k in _tau_columns(st)[:2]:
+            d, hi = st.scale_deviation[k], st.scale_hi[k]
+            value = f"{d:.2g}" if np.isfinite(d) else (f"&lt; {hi:.2g}" if np.isfinite(hi) else "")
+            if value:
+                parts.append(f"{value} at \u03c4 = {esc(duration_text(st.tau_s[k]))}")
+        if parts:
+            rows.append(("scale stability", ", ".join(parts) + " (estimate, overlapping "
+                                                               "Hadamard deviation)"))
     counts = data.assessment.counts()
     if counts:
         text = ", ".join(f"{n} {verdict_cell(v)}" for v, n in sorted(counts.items()))
     else:
         text = esc(data.assessment.notice)
     rows.append(("assessment", text))
-    if ev["recent"]:
-        e = ev["recent"][-1]
-        rows.append(("latest event", f"{esc(e['utc'])} {esc(e['clock'])} {esc(e['kind'])} "
-                                     f"({_magnitude(e['kind'], e['magnitude'])})"))
     if s["runs"]:
         last = s["runs"][-1]
         rows.append(("runs", f"{s['run_count']}; the last {esc(last['time_utc'])} "

@@ -61,7 +61,7 @@ SCALE_COLOUR = "#000000"
 def series_style(k: int) -> dict:
     """Colour, marker and line style of the k-th series of a multi-series plot."""
     return {"color": PALETTE[k % len(PALETTE)], "marker": MARKERS[k % len(MARKERS)],
-            "linestyle": LINESTYLES[(k // len(PALETTE) + k) % len(LINESTYLES)]}
+            "linestyle": LINESTYLES[k % len(LINESTYLES)]}   # (colour, style) unique for k < 28
 
 
 def event_style(kind: str) -> tuple[str, str, str]:
