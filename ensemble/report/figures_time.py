@@ -233,9 +233,11 @@ def plot_weights(data, path) -> str:
             top_edge = base + means[:, k]
             colour = "#BBBBBB" if (rest and k == len(labels) - 1) else \
                 style.PALETTE[k % len(style.PALETTE)]
+            # Hatch lines take the edge colour; the outline is drawn once, along the top only.
             ax.fill_between(dates, base, top_edge, facecolor=colour, alpha=0.85,
                             hatch=_HATCHES[k % len(_HATCHES)], edgecolor="#333333",
-                            linewidth=0.4, label=label, step="mid")
+                            linewidth=0.0, label=label)
+            ax.plot(dates, top_edge, color="#333333", linewidth=0.5)
             base = top_edge
     ax.set_ylim(0.0, 1.0)
     ax.set_ylabel("weight in the scale [1]")
@@ -244,7 +246,9 @@ def plot_weights(data, path) -> str:
     ticks, labels, offset = date_ticks(x0, x1)
     date_axis(ax, ticks, labels, offset)
     ax.grid(True, color="#dddddd", linewidth=0.5)
-    ax.legend(loc="center left", bbox_to_anchor=(1.01, 0.5), fontsize=8, frameon=False)
+    handles, names = ax.get_legend_handles_labels()
+    ax.legend(handles[::-1], names[::-1], loc="center left", bbox_to_anchor=(1.01, 0.5),
+              fontsize=8, frameon=False)             # top layer first, as stacked
     fig.tight_layout()
     save(fig, path)
     thinning = (" (means over runs of epochs)" if data.mjd.size > 1000 else "")
