@@ -123,26 +123,29 @@ class SignatureGLR:
         self.C[:, :, j] = 0.0
         self.live[:, j] = True
         self.head = (j + 1) % self.window
-        # propagate the responses: F <- Phi(dt) F
         F = self.F
+        # propagate the responses: F <- Phi(dt) F
         F[..., 0] += dt * F[..., 1] + 0.5 * dt * dt * F[..., 2]
         F[..., 1] += dt * F[..., 2]
-        age = t_now - self.onset_t                              # (window,)
+        age = t_now - self.onset_t                              # (window,), NaN if unused
+        age = np.where(np.isfinite(age), age, 0.0)
         true0 = np.stack([age, 0.5 * age * age])                # (2, window) phase of Phi f
-        g_sig = true0[None] - F[..., 0]                         # (n, 2, window)
-        g_sig = np.where(np.isfinite(g_sig), g_sig, 0.0)
-        v = valid[:, None, None] & self.live[:, None, :]
-        v = v & np.array([True, True])[None, :, None]
-        v[:, 1, :] &= has_drift[:, None]
-        r = np.where(valid, residual, 0.0)[:, None, None]
-        w = np.where(valid, 1.0 / np.where(valid, var, 1.0), 0.0)[:, None, None]
-        self.d += np.where(v, g_sig * r * w, 0.0)
-        self.C += np.where(v, g_sig * g_sig * w, 0.0)
-        F += np.where(v[..., None], gain[:, None, None, :] * g_sig[..., None], 0.0)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            stat = np.where(self.C > 0, self.d * self.d / self.C, 0.0)
-        stat[:, 1, :] = np.where(has_drift[:, None], stat[:, 1, :], 0.0)
+        # 1 where the clock's residual counts for that onset and hypothesis, else 0
+        use = (valid[:, None] & self.live).astype(float)[:, None, :] * \
+            np.stack([np.ones(self.n), has_drift.astype(float)], axis=1)[:, :, None]
+        g_sig = (true0[None] - F[..., 0]) * use                 # (n, 2, window)
+        inv_var = np.zeros(self.n)
+        inv_var[valid] = 1.0 / var[valid]
+        gw = g_sig * inv_var[:, None, None]
+        res = np.where(valid, residual, 0.0)
+        self.d += gw * res[:, None, None]
+        self.C += gw * g_sig
+        F += g_sig[..., None] * gain[:, None, None, :]
+        stat = np.zeros_like(self.C)
+        np.divide(self.d * self.d, self.C, out=stat, where=self.C > 0)
         alarms = []
+        if not (stat > self.threshold).any():
+            return alarms
         hot = np.flatnonzero((stat > self.threshold).any(axis=(1, 2)))
         for i in hot:
             h, slot = np.unravel_index(int(np.argmax(stat[i])), stat[i].shape)

@@ -30,7 +30,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.linalg
+from scipy.linalg.lapack import dpotrf, dpotrs
 
 from ..units import NS_PER_S, SECONDS_PER_DAY, scale_diffusion
 
@@ -67,6 +67,7 @@ class EnsembleFilter:
         self.q = np.zeros((n_clocks, 3))
         #: white PM variance of each clock's channel, scaled units (ns^2)
         self.r = np.zeros(n_clocks)
+        self._q_cache: dict = {}
 
     # ------------------------------------------------------------------ set-up and SI helpers
     def set_noise(self, i: int, q1_s: float, q2_per_s: float, q3_per_s3: float,
@@ -75,6 +76,7 @@ class EnsembleFilter:
         self.q[i] = [scale_diffusion(q1_s, 1), scale_diffusion(q2_per_s, 2),
                      scale_diffusion(q3_per_s3, 3)]
         self.r[i] = r_s2 * NS_PER_S ** 2
+        self._q_cache.clear()
 
     def activate(self, i: int, state_si: np.ndarray, cov_si: np.ndarray,
                  phase_link: int | None = None) -> None:
@@ -99,6 +101,7 @@ class EnsembleFilter:
         self.P[s, :] = 0.0
         self.P[:, s] = 0.0
         self.P[s, s] = np.asarray(cov_si, dtype=float) * np.outer(SCALE, SCALE)
+        self._q_cache.clear()
         if phase_link is not None:
             j = 3 * phase_link
             row = self.P[j, :].copy()
@@ -115,6 +118,7 @@ class EnsembleFilter:
         self.P[s, :] = 0.0
         self.P[:, s] = 0.0
         self.active[i] = False
+        self._q_cache.clear()
 
     def state_si(self, i: int) -> np.ndarray:
         """Clock i's (phase [s], frequency [1], drift [1/s]) in the filter's frame."""
@@ -145,10 +149,18 @@ class EnsembleFilter:
         p4[:, 1] += t * p4[:, 2]
         p4[:, :, :, 0] += t * p4[:, :, :, 1] + h * p4[:, :, :, 2]
         p4[:, :, :, 1] += t * p4[:, :, :, 2]
-        act = np.flatnonzero(self.active)
+        # Phi P Phi^T is symmetric up to round-off; the update and the projection that follow
+        # every prediction re-symmetrise P.
+        cached = self._q_cache.get(dt_s)
+        if cached is None:
+            act = np.flatnonzero(self.active)
+            cached = (act, _q_blocks(self.q[act], t))
+            if len(self._q_cache) > 32:
+                self._q_cache.clear()
+            self._q_cache[dt_s] = cached
+        act, blocks = cached
         if act.size:
-            p4[act, :, act, :] += _q_blocks(self.q[act], t)
-        self._symmetrize()
+            p4[act, :, act, :] += blocks
 
     # -------------------------------------------------------------------------------- update
     def innovation_covariance(self, clocks: np.ndarray, ref: int) -> np.ndarray:
@@ -191,8 +203,9 @@ class EnsembleFilter:
         ----------
         z_s, clocks, ref
             As for :meth:`innovations`.
-        chol : tuple, optional
-            ``scipy.linalg.cho_factor`` of S for exactly these channels, when the caller has it.
+        chol : ndarray, optional
+            Lower Cholesky factor of S (scaled units) for exactly these channels, when the caller
+            has it.
         """
         clocks = np.asarray(clocks, dtype=int)
         if clocks.size == 0:
@@ -205,8 +218,11 @@ class EnsembleFilter:
             s = b[px, :] - b[pr, :]
             s = 0.5 * (s + s.T)
             s[np.diag_indices_from(s)] += self.r[clocks]
-            chol = scipy.linalg.cho_factor(s, lower=True, check_finite=False)
-        k = scipy.linalg.cho_solve(chol, b.T, check_finite=False).T      # K = P H^T S^-1
+            chol = cholesky(s)
+        k, info = dpotrs(chol, b.T, lower=1)                            # K^T = S^-1 H P
+        if info:
+            raise np.linalg.LinAlgError(f"Cholesky solve failed (info {info})")
+        k = k.T
         self.x += k @ nu
         a = self.P - k @ b.T                                            # (I - K H) P
         ah = a[:, px] - a[:, [pr]]                                       # A H^T
@@ -247,17 +263,19 @@ class EnsembleFilter:
             The shift removed, i.e. the v-mean clock's (phase [s], frequency [1], drift [1/s])
             in the frame before the projection.
         """
-        act = np.flatnonzero(self.active)
-        w = np.asarray(v, dtype=float)[act]
         n = self.n_clocks
+        v = np.asarray(v, dtype=float) * self.active
+        everyone = bool(self.active.all())
+        act = slice(None) if everyone else np.flatnonzero(self.active)
         x3 = self.x.reshape(n, 3)
-        shift = w @ x3[act]
+        shift = v @ x3
         x3[act] -= shift
-        p4 = self.P.reshape(n, 3, n, 3)
-        rows = np.einsum("i,iajb->ajb", w, p4[act])           # V^T P, shape (3, n, 3)
-        p4[act] -= rows[None]
-        cols = np.einsum("j,iajb->iab", w, p4[:, :, act, :])  # (A P) V, shape (n, 3, 3)
-        p4[:, :, act, :] -= cols[:, :, None, :]
+        p3 = self.P.reshape(n, 3, 3 * n)
+        rows = (v @ self.P.reshape(n, 9 * n)).reshape(3, 3 * n)     # V^T P
+        p3[act] -= rows[None]
+        pc = self.P.reshape(3 * n, n, 3)
+        cols = np.einsum("xjb,j->xb", pc, v)                         # (A P) V
+        pc[:, act, :] -= cols[:, None, :]
         self._symmetrize()
         return shift / SCALE
 
@@ -307,6 +325,25 @@ class EnsembleFilter:
         f.q = np.array(state["q"], dtype=float)
         f.r = np.array(state["r"], dtype=float)
         return f
+
+
+def cholesky(s: np.ndarray) -> np.ndarray:
+    """Lower Cholesky factor of a symmetric positive definite matrix (LAPACK dpotrf).
+
+    Raises numpy.linalg.LinAlgError when the matrix is not positive definite.
+    """
+    c, info = dpotrf(s, lower=1, clean=1)
+    if info:
+        raise np.linalg.LinAlgError(f"matrix not positive definite (dpotrf info {info})")
+    return c
+
+
+def cholesky_inverse(c: np.ndarray) -> np.ndarray:
+    """Inverse of S from its lower Cholesky factor (full symmetric matrix)."""
+    inv, info = dpotrs(c, np.eye(c.shape[0]), lower=1)
+    if info:
+        raise np.linalg.LinAlgError(f"Cholesky solve failed (info {info})")
+    return inv
 
 
 def _q_blocks(q: np.ndarray, t: float) -> np.ndarray:

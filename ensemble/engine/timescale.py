@@ -31,15 +31,13 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.linalg
-import scipy.optimize
 import scipy.stats
 
 from ..model.clockmodel import ClockNoise
 from ..units import SECONDS_PER_DAY
 from .detect import (SignatureGLR, frozen_prediction_covariance, glr_classify, glr_threshold,
                      window_threshold)
-from .kalman import SCALE, EnsembleFilter
+from .kalman import SCALE, EnsembleFilter, cholesky, cholesky_inverse
 from .settings import DetectionSettings, EnsembleSettings
 from .weights import relative_cap_weights
 
@@ -168,6 +166,7 @@ class TimeScaleEngine:
         self.weights = np.zeros(n)
         self.frame_weights = np.zeros(n)
         self.var_pred = np.full(n, np.nan)  # model prediction-error variance at tau_w [s^2]
+        self._weights_due = 0               # epochs until the weights are recomputed
         # anomaly tests
         self.episodes: dict[int, _Episode] = {}
         rate = detection.false_alarm_rate
@@ -270,9 +269,9 @@ class TimeScaleEngine:
         if ic.size == 0:
             r[others], var[others] = nu * 1e-9, np.diag(s) * 1e-18
             return r, var, None
-        scc = s[np.ix_(ic, ic)]
-        chol = scipy.linalg.cho_factor(scc, lower=True, check_finite=False)
-        inv = scipy.linalg.cho_solve(chol, np.eye(ic.size), check_finite=False)
+        scc = s[np.ix_(ic, ic)] if ih.size else s
+        chol = cholesky(scc)
+        inv = cholesky_inverse(chol)
         d = np.diag(inv)
         r[others[ic]] = (inv @ nu[ic]) / d * 1e-9
         var[others[ic]] = 1e-18 / d
@@ -412,16 +411,24 @@ class TimeScaleEngine:
         drift = np.where(active, est[:, 2] + self.frame_drift, np.nan)
         # ------------------------------------------------------- statistics and standings
         clean_now = clean & ~decided
-        if not first:
-            self._record_family(offset - pred, clean_now, used, dt)
+        waiting = (self.status == PROBATION) | (self.status == EXCLUDED)
+        if not first and waiting.any():
+            self._record_family(offset - pred, clean_now & waiting, used, dt)
         if self.cfg.tracking and not first:
             self._record_residuals(zscore, clean_now)
-        if (self.status == PROBATION).any() or (self.status == EXCLUDED).any():
+        standing = self.status.copy()
+        if waiting.any():
             self._advance_standings(t_s)
         if self.cfg.tracking and t_s >= self.next_tracking_t:
             self._track_noise()
             self.next_tracking_t = t_s + self.cfg.tracking_interval_days * SECONDS_PER_DAY
-        self._refresh_weights()
+            self._weights_due = 0
+        # the weights follow the standings at once, the slowly changing P_yy daily
+        self._weights_due -= 1
+        if self._weights_due <= 0 or not np.array_equal(standing, self.status) \
+                or decided.any() or first:
+            self._refresh_weights()
+            self._weights_due = max(1, int(SECONDS_PER_DAY / self.tau0_s))
         vp = np.where(np.isfinite(self.var_pred), self.var_pred, 0.0)
         sigma = math.sqrt(float(used ** 2 @ vp))
         self.prev_offset = offset
