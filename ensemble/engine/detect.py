@@ -175,6 +175,7 @@ class SignatureGLR:
             setattr(self, key, np.array(state[key], dtype=float))
         self.live = np.array(state["live"], dtype=bool)
         self.head = int(state["head"])
+        self.n = self.F.shape[0]
 
 
 def frozen_prediction_covariance(dt_s: np.ndarray, prior_cov: np.ndarray, q: np.ndarray,

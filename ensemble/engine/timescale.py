@@ -678,3 +678,107 @@ class TimeScaleEngine:
             changed = True
         if changed:
             self._frame_weight_update()
+
+    # ------------------------------------------------------------------------- persistence
+    _SCALARS = ("epoch", "t", "mjd", "_t_prev", "_mjd_prev", "frame_frequency", "frame_drift",
+                "scale_minus_frame", "next_tracking_t", "_weights_due")
+    _ARRAYS = ("status", "status_since", "exclusion_days", "last_seen", "last_update_t",
+               "prev_offset", "prev_clean", "prev_freq", "prev_drift", "weights",
+               "frame_weights", "var_pred", "family", "z2_mean", "z2_count")
+
+    def state_dict(self) -> dict:
+        """Everything needed to continue later: numeric arrays and plain numbers only."""
+        state = {"clocks": list(self.clocks), "tau0_s": self.tau0_s,
+                 "noise": np.array([[n.q1_s, n.q2_per_s, n.q3_per_s3, n.r_s2]
+                                    for n in self.noise]),
+                 "has_drift": self.has_drift.copy(), "monitor": self.monitor.copy(),
+                 "frequency_prior": np.array([s.frequency_prior for s in self.setups]),
+                 "drift_prior": np.array([s.drift_prior_per_s for s in self.setups]),
+                 "filter": self.filter.state_dict(), "slow": self.slow.state_dict()}
+        for name in self._SCALARS:
+            state[name] = float(getattr(self, name))
+        for name in self._ARRAYS:
+            state[name] = np.array(getattr(self, name))
+        state["episodes"] = {
+            str(i): {"start_mjd": ep.start_mjd, "start_t": ep.start_t,
+                     "onset_offset_s": ep.onset_offset_s, "prior_cov": np.array(ep.prior_cov),
+                     "times": np.array(ep.times, dtype=float),
+                     "residuals": np.array(ep.residuals, dtype=float),
+                     "variances": np.array(ep.variances, dtype=float)}
+            for i, ep in self.episodes.items()}
+        return state
+
+    @classmethod
+    def from_state(cls, state: dict, ensemble: EnsembleSettings,
+                   detection: DetectionSettings) -> "TimeScaleEngine":
+        """Rebuild an engine saved with :meth:`state_dict` (bit-identical continuation)."""
+        noise = np.asarray(state["noise"], dtype=float)
+        setups = [ClockSetup(ClockNoise(*row), drift_state=bool(d), monitor=bool(m),
+                             frequency_prior=float(fp), drift_prior_per_s=float(dp))
+                  for row, d, m, fp, dp in zip(noise, state["has_drift"], state["monitor"],
+                                               state["frequency_prior"], state["drift_prior"])]
+        eng = cls(state["clocks"], float(state["tau0_s"]), setups, ensemble, detection)
+        eng.filter = EnsembleFilter.from_state(state["filter"])
+        eng.slow.load_state(state["slow"])
+        for name in cls._SCALARS:
+            value = float(state[name])
+            setattr(eng, name, int(value) if name in ("epoch", "_weights_due") else value)
+        for name in cls._ARRAYS:
+            current = getattr(eng, name)
+            setattr(eng, name, np.array(state[name], dtype=current.dtype))
+        eng.episodes = {}
+        for key, ep in state.get("episodes", {}).items():
+            eng.episodes[int(key)] = _Episode(
+                float(ep["start_mjd"]), float(ep["start_t"]), float(ep["onset_offset_s"]),
+                np.array(ep["prior_cov"], dtype=float), list(np.asarray(ep["times"], float)),
+                list(np.asarray(ep["residuals"], float)), list(np.asarray(ep["variances"], float)))
+        return eng
+
+    def add_clocks(self, setups_by_name: dict) -> None:
+        """Add clocks that appear for the first time in a later run (new last columns)."""
+        names = [name for name in setups_by_name if name not in self.clocks]
+        if not names:
+            return
+        state = self.state_dict()
+        k = len(names)
+        n = self.n
+        state["clocks"] = list(self.clocks) + names
+        new = [setups_by_name[name] for name in names]
+        state["noise"] = np.vstack([state["noise"], [[s.noise.q1_s, s.noise.q2_per_s,
+                                                      s.noise.q3_per_s3, s.noise.r_s2]
+                                                     for s in new]])
+        for key, values in (("has_drift", [s.drift_state for s in new]),
+                            ("monitor", [s.monitor for s in new]),
+                            ("frequency_prior", [s.frequency_prior for s in new]),
+                            ("drift_prior", [s.drift_prior_per_s for s in new])):
+            state[key] = np.concatenate([state[key], np.array(values, dtype=state[key].dtype)])
+        fills = {"status": np.array([MONITOR if s.monitor else ABSENT for s in new], np.int8),
+                 "last_seen": -np.inf, "prev_offset": np.nan, "var_pred": np.nan,
+                 "last_update_t": np.nan, "z2_mean": 1.0}
+        for name in self._ARRAYS:
+            arr = state[name]
+            fill = fills.get(name, 0)
+            if arr.ndim == 1:
+                extra = np.broadcast_to(np.asarray(fill, dtype=arr.dtype), (k,))
+                state[name] = np.concatenate([arr, extra])
+            else:   # family (FAMILY_EPOCHS, n)
+                state[name] = np.concatenate([arr, np.full((arr.shape[0], k), np.nan)], axis=1)
+        f = state["filter"]
+        x = np.zeros(3 * (n + k))
+        x[:3 * n] = f["x"]
+        p = np.zeros((3 * (n + k), 3 * (n + k)))
+        p[:3 * n, :3 * n] = f["P"]
+        state["filter"] = {"x": x, "P": p,
+                           "active": np.concatenate([f["active"], np.zeros(k, bool)]),
+                           "q": np.vstack([f["q"], np.zeros((k, 3))]),
+                           "r": np.concatenate([f["r"], np.zeros(k)])}
+        sl = state["slow"]
+        state["slow"] = dict(sl, F=np.concatenate([sl["F"], np.zeros((k,) + sl["F"].shape[1:])]),
+                             d=np.concatenate([sl["d"], np.zeros((k,) + sl["d"].shape[1:])]),
+                             C=np.concatenate([sl["C"], np.zeros((k,) + sl["C"].shape[1:])]),
+                             live=np.concatenate([sl["live"],
+                                                  np.zeros((k,) + sl["live"].shape[1:], bool)]))
+        other = TimeScaleEngine.from_state(state, self.cfg, self.det)
+        for i, s in enumerate(new):
+            other._set_noise(n + i, s.noise)
+        self.__dict__.update(other.__dict__)
