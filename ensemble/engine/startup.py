@@ -29,6 +29,8 @@ from ..units import SECONDS_PER_DAY
 from .settings import ClockSettings, EnsembleSettings
 from .timescale import ClockSetup
 
+#: Fewest epochs of the start-up stretch from which noise levels are estimated.
+_MIN_EPOCHS = 24
 #: Pairs per clock when the ensemble is too large for all pairs.
 _ANCHORS = 8
 #: Smallest channel white PM variance accepted [s^2] (0.1 ps rms): keeps S positive definite.
@@ -85,8 +87,6 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     """
     from ..stability.deviations import overlapping_avar_hvar
     from ..stability.edf import edf_greenhall
-    from ..stability.fit import FLICKER_HVAR, fit_noise
-    from ..stability.hat import NegativeVarianceWarning, n_cornered_hat
 
     idx = np.flatnonzero(members)
     messages: list[str] = []
@@ -94,6 +94,10 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
         return {int(i): None for i in idx}, ["fewer than three clocks: noise levels not "
                                              "separable, typical levels used"]
     t = phase_s.shape[0]
+    if t < _MIN_EPOCHS:
+        return {int(i): None for i in idx}, [
+            f"the start-up stretch has {t} epochs, fewer than the {_MIN_EPOCHS} needed to "
+            f"estimate noise levels; typical levels used"]
     avail = np.isfinite(phase_s[:, idx]).mean(axis=0)
     order = idx[np.argsort(-avail, kind="stable")]
     if idx.size <= 2 * _ANCHORS:
@@ -118,6 +122,17 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     ok = np.isfinite(hvar) & (hvar > 0) & np.isfinite(edf)
     hvar = np.where(ok, hvar, np.nan)
     edf = np.where(ok, edf, 1.0)
+    with warnings.catch_warnings():
+        # columns without any usable pair at some tau are NaN on purpose
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return _separate(idx, pairs, clock_names, ov, hvar, edf, match_tau_s, tau0_s, messages)
+
+
+def _separate(idx, pairs, clock_names, ov, hvar, edf, match_tau_s, tau0_s, messages):
+    """Hat per averaging time, then a fit per clock (see :func:`estimate_noise`)."""
+    from ..stability.fit import FLICKER_HVAR, fit_noise
+    from ..stability.hat import NegativeVarianceWarning, n_cornered_hat
+
     labels = [clock_names[i] for i in idx]
     name_pairs = [(clock_names[a], clock_names[b]) for a, b in pairs]
     with warnings.catch_warnings():
@@ -142,7 +157,8 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     r_sys = 0.0
     if q_ok.sum() >= 3:
         r_sys = 0.5 * fit_noise(ov.tau_s[q_ok], hvar[quiet, q_ok], np.maximum(edf[quiet, q_ok], 1),
-                                kind="hadamard", terms=("r", "q1", "q2")).noise.r_s2
+                                kind="hadamard", terms=_terms(int(q_ok.sum()), True)[:3]
+                                ).noise.r_s2
     out = {}
     for k, i in enumerate(idx):
         mine = (pair_arr[:, 0] == i) | (pair_arr[:, 1] == i)
@@ -161,20 +177,30 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
             messages.append(f"{clock_names[i]}: not separable from its pairs at the shortest "
                             f"averaging times; half of its quietest pair used")
         tau, w = ov.tau_s[use], np.maximum(point_edf[use], 1.0)
-        fit = fit_noise(tau, value[use], w, kind="hadamard", terms=("r", "q1", "q2", "flicker"))
+        fit = fit_noise(tau, value[use], w, kind="hadamard", terms=_terms(tau.size, True))
         r_fit = fit.noise.r_s2
         if r_fit > 4.0 * r_sys:
             rest = value[use] - 10.0 * r_sys / (3.0 * tau ** 2)
             keep = rest > 0
-            if keep.sum() >= 3:
+            if keep.sum() >= 2:
                 fit = fit_noise(tau[keep], rest[keep], w[keep], kind="hadamard",
-                                terms=("q1", "q2", "flicker"))
+                                terms=_terms(int(keep.sum()), False))
             r_fit = r_sys
         h1 = fit.flicker_h_minus1 if np.isfinite(fit.flicker_h_minus1) else 0.0
         q2 = fit.noise.q2_per_s + 6.0 * FLICKER_HVAR * h1 / match
         nz = ClockNoise(fit.noise.q1_s, q2, 0.0, r_fit)
         out[int(i)] = nz if nz.q1_s > 0 else None
     return out, messages
+
+
+def _terms(n_points: int, with_r: bool) -> tuple:
+    """Terms a curve of ``n_points`` averaging times can carry (a flicker floor needs 6)."""
+    terms = ("r", "q1", "q2", "flicker") if with_r else ("q1", "q2", "flicker")
+    if n_points >= 6:
+        return terms
+    if n_points >= len(terms) - 1:
+        return terms[:-1]
+    return terms[:max(1, n_points - 1)] if with_r else terms[:max(1, n_points)]
 
 
 def _fit_state(x: np.ndarray, t_s: np.ndarray, drift: bool):
