@@ -292,33 +292,49 @@ def build_setups(phase_s: np.ndarray, elapsed_s: np.ndarray, reference: np.ndarr
 
 
 def _initial_states(setups, stretch, t, anchor) -> None:
-    """Initial (phase, frequency, drift) of each clock relative to the anchor clock."""
+    """Initial (phase, frequency, drift) of each clock relative to the anchor clock.
+
+    The values are fits of each clock minus the anchor; the covariance of each clock carries
+    only its own share (from its own noise levels), so that the prior of any difference,
+    P_i + P_j, does not depend on which clock served as the anchor (the initial covariance of
+    the unobservable common mode is immaterial: the filter's frame removes it).
+    """
     if not t.size:
         return
     z0 = stretch[0]
-    span = max(float(t[-1]), 1.0)
-    q_anchor = setups[anchor].noise
     for i, s in enumerate(setups):
         if s.monitor or not np.isfinite(z0[i]):
             continue
+        own = _own_prior(s, max(float(t[-1]), 1.0))
         if i == anchor:
             s.initial_state = np.zeros(3)
-            s.initial_cov = np.diag([s.noise.r_s2, 0.0, 0.0])
+            s.initial_cov = own
             continue
-        x = stretch[:, i] - stretch[:, anchor]
-        fit = _fit_state(x, t, s.drift_state)
+        fit = _fit_state(stretch[:, i] - stretch[:, anchor], t, s.drift_state)
         if fit is None:
             continue
         _, freq, drift, fspan = fit
-        fspan = max(fspan, 1.0)
-        q1 = s.noise.q1_s + q_anchor.q1_s
-        q2 = s.noise.q2_per_s + q_anchor.q2_per_s
-        # slope of a random-walk phase over T: variance 6 q1 / (5 T); frequency wander q2 T / 3
-        p_yy = 4.0 * (1.2 * q1 / fspan + q2 * fspan / 3.0)
-        p_dd = 4.0 * (720.0 * q1 / fspan ** 3 + 12.0 * q2 / fspan) if s.drift_state else 0.0
+        cov = _own_prior(s, max(fspan, 1.0))
         if not s.drift_state or fspan < 3 * SECONDS_PER_DAY:
             drift = 0.0
-            p_dd = s.drift_prior_per_s ** 2 if s.drift_state else 0.0
         s.initial_state = np.array([z0[i] - z0[anchor], freq, drift])
-        s.initial_cov = np.diag([s.noise.r_s2 + setups[anchor].noise.r_s2, p_yy, p_dd])
-    del span
+        s.initial_cov = cov
+
+
+def _own_prior(s: ClockSetup, span_s: float) -> np.ndarray:
+    """A clock's own share of the uncertainty of a fit over ``span_s`` [s].
+
+    Slope of a random-walk phase over T: variance 6 q1 / (5 T) (plus the frequency wander
+    q2 T / 3 over the stretch); curvature: 720 q1 / T^3 + 12 q2 / T; four times these for
+    safety (the fit ignores the correlation of the residuals).  Without a drift state, or over
+    less than three days, the drift keeps its type's prior.
+    """
+    q1, q2 = s.noise.q1_s, s.noise.q2_per_s
+    p_yy = 4.0 * (1.2 * q1 / span_s + q2 * span_s / 3.0)
+    if not s.drift_state:
+        p_dd = 0.0
+    elif span_s < 3 * SECONDS_PER_DAY:
+        p_dd = s.drift_prior_per_s ** 2
+    else:
+        p_dd = 4.0 * (720.0 * q1 / span_s ** 3 + 12.0 * q2 / span_s)
+    return np.diag([s.noise.r_s2, p_yy, p_dd])

@@ -202,8 +202,13 @@ class TimeScaleEngine:
         """Each clock's frequency variance in the filter (relative to the frame) [1]."""
         return np.diag(self.filter.P)[1::3] / SCALE[1] ** 2
 
-    def _frame_weight_update(self) -> None:
-        """Recompute the frame weights v and re-reference the filter (continuity kept)."""
+    def _frame_weight_update(self, initial: bool = False) -> None:
+        """Recompute the frame weights v and re-reference the filter (continuity kept).
+
+        With ``initial`` the projection defines the frame (the scale starts with the frame's
+        frequency and drift); afterwards a change of v moves the frame and the offsets
+        ``frame_frequency`` and ``frame_drift`` absorb the move.
+        """
         eligible = (self.status == ACTIVE) & self.filter.active
         if not eligible.any():
             eligible = self.filter.active & ~self.monitor
@@ -218,9 +223,10 @@ class TimeScaleEngine:
         v = relative_cap_weights(np.where(eligible, hvar, np.inf), eligible, self.cfg.cap(), 0)
         self.frame_weights = v
         shift = self.filter.project(v)
-        self.frame_frequency += shift[1]
-        self.frame_drift += shift[2]
-        self.scale_minus_frame -= shift[0]
+        if not initial:
+            self.frame_frequency += shift[1]
+            self.frame_drift += shift[2]
+            self.scale_minus_frame -= shift[0]
 
     def _refresh_weights(self) -> None:
         """Phase weights from each clock's model prediction-error variance at the weighting
@@ -323,7 +329,7 @@ class TimeScaleEngine:
             self.status[i] = ACTIVE
             self.last_update_t[i] = t
         self._refresh_weights()
-        self._frame_weight_update()
+        self._frame_weight_update(initial=True)
 
     # ------------------------------------------------------------------------------ step
     def step(self, t_s: float, mjd: float, z: np.ndarray, ref: int) -> dict:
