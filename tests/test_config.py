@@ -69,3 +69,18 @@ def test_clock_tables_and_ints_for_floats():
     written = tomllib.loads(cfg.to_toml())["clocks"]["H1"]
     assert written["q1_s"] == 1e-26
     assert "q2_per_s" not in written  # NaN ("estimate") keys are not written
+
+
+def test_shipped_default_config_is_current():
+    # Regression: configs/default.toml is the output of `ensemble config`.
+    from conftest import CONFIG_DIR
+    from ensemble.config import documented_defaults
+    assert (CONFIG_DIR / "default.toml").read_text() == documented_defaults()
+    cfg = load_config(CONFIG_DIR / "default.toml")
+    assert cfg.to_toml() == default_config().to_toml()
+
+
+def test_shipped_run_configs_are_valid():
+    from conftest import CONFIG_DIR
+    for name in ("demo.toml", "steering_examples.toml"):
+        load_config(CONFIG_DIR / name)
