@@ -90,9 +90,12 @@ class RunResult:
         return pd.DataFrame(self.steering)
 
 
-def _prepare_roles(meas: Measurements, cfg: Config) -> dict:
-    """Per-clock settings, with the measured steered output forced to the monitor role."""
-    clocks = {name: cfg.clock(name) for name in meas.clocks}
+def _prepare_roles(meas: Measurements, cfg: Config, known=()) -> dict:
+    """Per-clock settings, with the measured steered output forced to the monitor role.
+
+    ``known``: further clock names that exist (an archive's, when it is continued).
+    """
+    clocks = {name: cfg.clock(name) for name in (*meas.clocks, *known)}
     for name in cfg.clocks:
         if name not in clocks:
             raise ConfigError(f"clock '{name}' does not appear in the measurements "
@@ -416,6 +419,7 @@ def _create(meas: Measurements, cfg: Config, output: pathlib.Path, *, overwrite:
     """Form the scale over ``meas`` and write a new archive (atomically)."""
     from .archive import ArchiveWriter
 
+    _prepare_roles(meas, cfg)        # configuration errors before anything is written
     attrs = {"config_toml": cfg.to_toml(), "input_sha256": meas.sha256}
     writer = ArchiveWriter.create(output, meas.clocks, attrs, overwrite=overwrite,
                                   **_writer_options())
@@ -530,6 +534,7 @@ def append_to_archive(input_path, archive, *, config=None, reference: str | None
                              continues=(last_mjd, tau0_s))
     t_last = float(state["engine"]["t"])
     input_name = os.path.basename(str(input_path))
+    _prepare_roles(meas, cfg, clocks)  # configuration errors before anything is written
     if t_last < cfg.ensemble.startup_days * 86400.0:
         combined = _combine(clocks, old_mjd, old_phase, old_ref, old_elapsed, meas, tau0_s)
         result = _create(combined, cfg, archive, overwrite=True, input_name=input_name,
