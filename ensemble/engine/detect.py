@@ -68,15 +68,23 @@ class SignatureGLR:
     ----------
     n_clocks : int
     window : int
-        Number of onsets kept (the last ``window`` epochs).
+        Number of onsets kept.
     threshold : float
         Alarm threshold on l.
+    stride : int
+        A new onset every ``stride`` epochs (so the onsets span ``window * stride`` epochs).
+    tests : sequence of bool, length 2
+        Which of :data:`SLOW_HYPOTHESES` (frequency step, drift change) are tested.
     """
 
-    def __init__(self, n_clocks: int, window: int, threshold: float):
+    def __init__(self, n_clocks: int, window: int, threshold: float, stride: int = 1,
+                 tests=(True, True)):
         self.n = n_clocks
         self.window = window
         self.threshold = threshold
+        self.stride = int(stride)
+        self.tests = np.array(tests, dtype=float)
+        self.count = 0
         shape = (n_clocks, 2, window)
         self.F = np.zeros(shape + (3,))        # filter response per unit jump (SI)
         self.d = np.zeros(shape)
@@ -115,14 +123,16 @@ class SignatureGLR:
             ``correction`` is the state step (3,) that brings the clock's estimate to the
             detected jump: Phi(t - t_theta) f a - F a.
         """
-        j = self.head
-        self.onset_t[j] = t_prev
-        self.onset_mjd[j] = mjd_prev
-        self.F[:, :, j] = 0.0
-        self.d[:, :, j] = 0.0
-        self.C[:, :, j] = 0.0
-        self.live[:, j] = True
-        self.head = (j + 1) % self.window
+        if self.count % self.stride == 0:
+            j = self.head
+            self.onset_t[j] = t_prev
+            self.onset_mjd[j] = mjd_prev
+            self.F[:, :, j] = 0.0
+            self.d[:, :, j] = 0.0
+            self.C[:, :, j] = 0.0
+            self.live[:, j] = True
+            self.head = (j + 1) % self.window
+        self.count += 1
         F = self.F
         # propagate the responses: F <- Phi(dt) F
         F[..., 0] += dt * F[..., 1] + 0.5 * dt * dt * F[..., 2]
@@ -132,7 +142,8 @@ class SignatureGLR:
         true0 = np.stack([age, 0.5 * age * age])                # (2, window) phase of Phi f
         # 1 where the clock's residual counts for that onset and hypothesis, else 0
         use = (valid[:, None] & self.live).astype(float)[:, None, :] * \
-            np.stack([np.ones(self.n), has_drift.astype(float)], axis=1)[:, :, None]
+            (np.stack([np.ones(self.n), has_drift.astype(float)], axis=1)
+             * self.tests)[:, :, None]
         g_sig = (true0[None] - F[..., 0]) * use                 # (n, 2, window)
         inv_var = np.zeros(self.n)
         inv_var[valid] = 1.0 / var[valid]
@@ -168,13 +179,15 @@ class SignatureGLR:
     def state_dict(self) -> dict:
         return {"F": self.F.copy(), "d": self.d.copy(), "C": self.C.copy(),
                 "onset_t": self.onset_t.copy(), "onset_mjd": self.onset_mjd.copy(),
-                "live": self.live.copy(), "head": np.array(self.head)}
+                "live": self.live.copy(), "head": np.array(self.head),
+                "count": np.array(self.count)}
 
     def load_state(self, state: dict) -> None:
         for key in ("F", "d", "C", "onset_t", "onset_mjd"):
             setattr(self, key, np.array(state[key], dtype=float))
         self.live = np.array(state["live"], dtype=bool)
         self.head = int(state["head"])
+        self.count = int(state["count"])
         self.n = self.F.shape[0]
 
 

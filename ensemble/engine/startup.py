@@ -203,19 +203,34 @@ def _terms(n_points: int, with_r: bool) -> tuple:
     return terms[:max(1, n_points - 1)] if with_r else terms[:max(1, n_points)]
 
 
+#: Span of the linear fit giving the initial frequency: the frequency *at the start* is wanted,
+#: and a clock's frequency wanders over a longer stretch [s].
+_FREQ_FIT_S = 3 * SECONDS_PER_DAY
+
+
 def _fit_state(x: np.ndarray, t_s: np.ndarray, drift: bool):
-    """Polynomial fit of a difference series: (phase at t=0, frequency, drift), residual rms."""
+    """Initial (phase, frequency, drift) of a difference series and the frequency fit's span.
+
+    The drift comes from a quadratic over the whole stretch (when it spans three days), the
+    frequency from a straight line over the first :data:`_FREQ_FIT_S` after removing the drift.
+    """
     ok = np.isfinite(x)
     if ok.sum() < 3:
         return None
     tt, xx = t_s[ok], x[ok]
     span = tt.max() - tt.min()
-    deg = 2 if (drift and span >= 3 * SECONDS_PER_DAY and ok.sum() >= 10) else 1
-    scale = max(span, 1.0)
-    coef = np.polynomial.polynomial.polyfit(tt / scale, xx, deg)
-    freq = coef[1] / scale
-    drift_per_s = 2.0 * coef[2] / scale ** 2 if deg == 2 else 0.0
-    return coef[0], freq, drift_per_s, span
+    drift_per_s = 0.0
+    if drift and span >= 3 * SECONDS_PER_DAY and ok.sum() >= 10:
+        scale = max(span, 1.0)
+        coef = np.polynomial.polynomial.polyfit(tt / scale, xx, 2)
+        drift_per_s = 2.0 * coef[2] / scale ** 2
+    early = tt - tt.min() <= _FREQ_FIT_S
+    if early.sum() < 3:
+        early = np.ones(tt.size, dtype=bool)
+    te, xe = tt[early], xx[early] - 0.5 * drift_per_s * tt[early] ** 2
+    fspan = max(te.max() - te.min(), 1.0)
+    coef = np.polynomial.polynomial.polyfit(te / fspan, xe, 1)
+    return coef[0], coef[1] / fspan, drift_per_s, fspan
 
 
 def build_setups(phase_s: np.ndarray, elapsed_s: np.ndarray, reference: np.ndarray,
@@ -305,7 +320,7 @@ def _initial_states(setups, stretch, t, anchor) -> None:
     for i, s in enumerate(setups):
         if s.monitor or not np.isfinite(z0[i]):
             continue
-        own = _own_prior(s, max(float(t[-1]), 1.0))
+        own = _own_prior(s, min(max(float(t[-1]), 1.0), _FREQ_FIT_S), max(float(t[-1]), 1.0))
         if i == anchor:
             s.initial_state = np.zeros(3)
             s.initial_cov = own
@@ -314,15 +329,16 @@ def _initial_states(setups, stretch, t, anchor) -> None:
         if fit is None:
             continue
         _, freq, drift, fspan = fit
-        cov = _own_prior(s, max(fspan, 1.0))
-        if not s.drift_state or fspan < 3 * SECONDS_PER_DAY:
+        cov = _own_prior(s, max(fspan, 1.0), max(float(t[-1]), 1.0))
+        if not s.drift_state or float(t[-1]) < 3 * SECONDS_PER_DAY:
             drift = 0.0
         s.initial_state = np.array([z0[i] - z0[anchor], freq, drift])
         s.initial_cov = cov
 
 
-def _own_prior(s: ClockSetup, span_s: float) -> np.ndarray:
-    """A clock's own share of the uncertainty of a fit over ``span_s`` [s].
+def _own_prior(s: ClockSetup, span_s: float, drift_span_s: float) -> np.ndarray:
+    """A clock's own share of the uncertainty of the fits: frequency over ``span_s``, drift over
+    ``drift_span_s`` [s].
 
     Slope of a random-walk phase over T: variance 6 q1 / (5 T) (plus the frequency wander
     q2 T / 3 over the stretch); curvature: 720 q1 / T^3 + 12 q2 / T; four times these for
@@ -333,8 +349,8 @@ def _own_prior(s: ClockSetup, span_s: float) -> np.ndarray:
     p_yy = 4.0 * (1.2 * q1 / span_s + q2 * span_s / 3.0)
     if not s.drift_state:
         p_dd = 0.0
-    elif span_s < 3 * SECONDS_PER_DAY:
+    elif drift_span_s < 3 * SECONDS_PER_DAY:
         p_dd = s.drift_prior_per_s ** 2
     else:
-        p_dd = 4.0 * (720.0 * q1 / span_s ** 3 + 12.0 * q2 / span_s)
+        p_dd = 4.0 * (720.0 * q1 / drift_span_s ** 3 + 12.0 * q2 / drift_span_s)
     return np.diag([s.noise.r_s2, p_yy, p_dd])

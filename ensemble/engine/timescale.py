@@ -46,6 +46,8 @@ ABSENT, PROBATION, ACTIVE, EXCLUDED, REMOVED, MONITOR = 0, 1, 2, 3, 4, 5
 STATE_NAMES = {ABSENT: "absent", PROBATION: "probation", ACTIVE: "active",
                EXCLUDED: "excluded", REMOVED: "removed", MONITOR: "monitor"}
 
+#: Onsets of the long slow-change test.
+_LONG_SLOTS = 20
 #: Epochs over which a clock must be "in family" before it is (re-)admitted.
 FAMILY_EPOCHS = 24
 #: 99 % point of chi2(n)/n for n = 0..FAMILY_EPOCHS (index n; n = 0 unused).
@@ -171,8 +173,17 @@ class TimeScaleEngine:
         self.episodes: dict[int, _Episode] = {}
         rate = detection.false_alarm_rate
         self.h_event = glr_threshold(0.5 * rate)
+        # frequency steps: one onset per epoch; drift changes and small frequency steps: 20
+        # onsets over the long window (the budget split evenly between the two)
         self.slow = SignatureGLR(n, detection.window_epochs,
-                                 window_threshold(0.25 * rate, detection.window_epochs))
+                                 window_threshold(0.25 * rate, detection.window_epochs),
+                                 tests=(True, False))
+        stride = max(1, int(round(detection.long_window_days * SECONDS_PER_DAY
+                                  / (_LONG_SLOTS * self.tau0_s))))
+        self.slow_long = SignatureGLR(n, _LONG_SLOTS,
+                                      window_threshold(0.25 * rate, _LONG_SLOTS), stride=stride,
+                                      tests=(True, True)) \
+            if detection.long_window_days > 0 else None
         self.events: list[Event] = []
         self.family = np.full((FAMILY_EPOCHS, n), np.nan)   # standardised BTSE residuals^2
         # noise tracking: running mean of each clock's squared standardised residual
@@ -306,7 +317,7 @@ class TimeScaleEngine:
         self.status_since[i] = t
         self._reset_tracking(i)
         self.family[:, i] = np.nan
-        self.slow.reset(i)
+        self._reset_slow(i)
         self.prev_clean[i] = False
         self.last_update_t[i] = t
 
@@ -496,12 +507,14 @@ class TimeScaleEngine:
             gain = self.filter.relative_gains(result, pivot, self.frame_weights)
         else:
             gain = np.zeros((self.n, 3))
-        for i, kind, onset_mjd, size, unc, stat, corr in self.slow.step(
-                self._t_prev, self._mjd_prev, self.t - self._t_prev, self.t, gain, r, var,
-                valid, self.has_drift):
-            self._slow_change(i, kind, onset_mjd, size, unc, stat, corr)
-            clean[i] = False
-            decided[i] = True
+        banks = (self.slow,) if self.slow_long is None else (self.slow, self.slow_long)
+        for bank in banks:
+            for i, kind, onset_mjd, size, unc, stat, corr in bank.step(
+                    self._t_prev, self._mjd_prev, self.t - self._t_prev, self.t, gain, r, var,
+                    valid & ~decided, self.has_drift):
+                self._slow_change(i, kind, onset_mjd, size, unc, stat, corr)
+                clean[i] = False
+                decided[i] = True
         return pivot
 
     def _fallback_readout(self, z, members, pivot, est, dt):
@@ -582,7 +595,7 @@ class TimeScaleEngine:
             self.filter.correct(i, np.array([a1 * span, a1, 0.0]),
                                 np.array([(s1 * span) ** 2, s1 * s1, 0.0]))
             self._exclude(i, self.t, relearn=True)
-        self.slow.reset(i)
+        self._reset_slow(i)
         return outcome
 
     # ----------------------------------------------------------------- slow changes
@@ -591,7 +604,7 @@ class TimeScaleEngine:
         rel = np.abs(correction / size) if size != 0 else np.zeros(3)
         self.filter.correct(i, correction, (rel * unc) ** 2 + (0.25 * correction) ** 2)
         self.events.append(Event(onset_mjd, self.clocks[i], kind, size, stat, self.mjd, unc))
-        self.slow.reset(i)
+        self._reset_slow(i)
         self._exclude(i, self.t, relearn=True)
 
     # -------------------------------------------------------------------- standings
@@ -644,6 +657,11 @@ class TimeScaleEngine:
         scale_var = float(used ** 2 @ model)
         expected = np.maximum(model * (1.0 - 2.0 * used) + scale_var, 1e-3 * model)
         self.family[row, ok] = residual[ok] ** 2 / expected[ok]
+
+    def _reset_slow(self, i: int) -> None:
+        self.slow.reset(i)
+        if self.slow_long is not None:
+            self.slow_long.reset(i)
 
     def _reset_tracking(self, i: int) -> None:
         self.z2_mean[i] = 1.0
@@ -701,6 +719,8 @@ class TimeScaleEngine:
                  "frequency_prior": np.array([s.frequency_prior for s in self.setups]),
                  "drift_prior": np.array([s.drift_prior_per_s for s in self.setups]),
                  "filter": self.filter.state_dict(), "slow": self.slow.state_dict()}
+        if self.slow_long is not None:
+            state["slow_long"] = self.slow_long.state_dict()
         for name in self._SCALARS:
             state[name] = float(getattr(self, name))
         for name in self._ARRAYS:
@@ -726,6 +746,8 @@ class TimeScaleEngine:
         eng = cls(state["clocks"], float(state["tau0_s"]), setups, ensemble, detection)
         eng.filter = EnsembleFilter.from_state(state["filter"])
         eng.slow.load_state(state["slow"])
+        if eng.slow_long is not None and "slow_long" in state:
+            eng.slow_long.load_state(state["slow_long"])
         for name in cls._SCALARS:
             value = float(state[name])
             setattr(eng, name, int(value) if name in ("epoch", "_weights_due") else value)
@@ -778,12 +800,15 @@ class TimeScaleEngine:
                            "active": np.concatenate([f["active"], np.zeros(k, bool)]),
                            "q": np.vstack([f["q"], np.zeros((k, 3))]),
                            "r": np.concatenate([f["r"], np.zeros(k)])}
-        sl = state["slow"]
-        state["slow"] = dict(sl, F=np.concatenate([sl["F"], np.zeros((k,) + sl["F"].shape[1:])]),
-                             d=np.concatenate([sl["d"], np.zeros((k,) + sl["d"].shape[1:])]),
-                             C=np.concatenate([sl["C"], np.zeros((k,) + sl["C"].shape[1:])]),
-                             live=np.concatenate([sl["live"],
-                                                  np.zeros((k,) + sl["live"].shape[1:], bool)]))
+        for bank in ("slow", "slow_long"):
+            if bank not in state:
+                continue
+            sl = state[bank]
+            state[bank] = dict(
+                sl, F=np.concatenate([sl["F"], np.zeros((k,) + sl["F"].shape[1:])]),
+                d=np.concatenate([sl["d"], np.zeros((k,) + sl["d"].shape[1:])]),
+                C=np.concatenate([sl["C"], np.zeros((k,) + sl["C"].shape[1:])]),
+                live=np.concatenate([sl["live"], np.zeros((k,) + sl["live"].shape[1:], bool)]))
         other = TimeScaleEngine.from_state(state, self.cfg, self.det)
         for i, s in enumerate(new):
             other._set_noise(n + i, s.noise)
