@@ -216,6 +216,17 @@ def _run_epochs(engine: TimeScaleEngine, steering, meas: Measurements, t_offset_
     ``columns`` maps the measurement columns to the engine's (for a continued archive whose
     column order differs); the engine's time is ``t_offset_s + meas.elapsed_s``.
     """
+    from threadpoolctl import threadpool_limits
+
+    # The filter's matrices are small (3N x 3N): one BLAS thread is as fast on a quiet machine
+    # and far faster on a busy one (measured: benchmarks/bench_engine.py).
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _run_epochs_inner(engine, steering, meas, t_offset_s, report, sink=sink,
+                                 keep=keep, progress=progress, columns=columns)
+
+
+def _run_epochs_inner(engine, steering, meas, t_offset_s, report, *, sink, keep, progress,
+                      columns) -> RunResult:
     t_n, n = meas.n_epochs, engine.n
     keys = ("offset", "frequency", "drift", "weight", "state", "zscore")
     kept = {k: np.empty((t_n, n), dtype=np.int8 if k == "state" else float) for k in keys} \

@@ -77,14 +77,10 @@ class SignatureGLR:
         Which of :data:`SLOW_HYPOTHESES` (frequency step, drift change) are tested.
     """
 
-    def __init__(self, n_clocks: int, window: int, threshold: float, stride: int = 1,
-                 tests=(True, True)):
+    def __init__(self, n_clocks: int, window: int, threshold: float):
         self.n = n_clocks
         self.window = window
         self.threshold = threshold
-        self.stride = int(stride)
-        self.tests = np.array(tests, dtype=float)
-        self.count = 0
         shape = (n_clocks, 2, window)
         self.F = np.zeros(shape + (3,))        # filter response per unit jump (SI)
         self.d = np.zeros(shape)
@@ -93,6 +89,7 @@ class SignatureGLR:
         self.onset_mjd = np.full(window, np.nan)
         self.live = np.zeros((n_clocks, window), dtype=bool)
         self.head = 0
+        self._allowed = None                     # (has_drift, allowed hypotheses) cache
 
     def step(self, t_prev: float, mjd_prev: float, dt: float, t_now: float,
              gain: np.ndarray, residual: np.ndarray, var: np.ndarray, valid: np.ndarray,
@@ -123,42 +120,38 @@ class SignatureGLR:
             ``correction`` is the state step (3,) that brings the clock's estimate to the
             detected jump: Phi(t - t_theta) f a - F a.
         """
-        if self.count % self.stride == 0:
-            j = self.head
-            self.onset_t[j] = t_prev
-            self.onset_mjd[j] = mjd_prev
-            self.F[:, :, j] = 0.0
-            self.d[:, :, j] = 0.0
-            self.C[:, :, j] = 0.0
-            self.live[:, j] = True
-            self.head = (j + 1) % self.window
-        self.count += 1
+        j = self.head
+        self.onset_t[j] = t_prev
+        self.onset_mjd[j] = mjd_prev
+        self.F[:, :, j] = 0.0
+        self.d[:, :, j] = 0.0
+        self.C[:, :, j] = 0.0
+        self.live[:, j] = True
+        self.head = (j + 1) % self.window
         F = self.F
         # propagate the responses: F <- Phi(dt) F
         F[..., 0] += dt * F[..., 1] + 0.5 * dt * dt * F[..., 2]
         F[..., 1] += dt * F[..., 2]
-        age = t_now - self.onset_t                              # (window,), NaN if unused
-        age = np.where(np.isfinite(age), age, 0.0)
-        true0 = np.stack([age, 0.5 * age * age])                # (2, window) phase of Phi f
+        age = np.nan_to_num(t_now - self.onset_t)             # (window,), 0 if unused
+        if self._allowed is None or self._allowed[0] is not has_drift:
+            self._allowed = (has_drift, np.stack([np.ones(self.n), has_drift], axis=1))
         # 1 where the clock's residual counts for that onset and hypothesis, else 0
-        use = (valid[:, None] & self.live).astype(float)[:, None, :] * \
-            (np.stack([np.ones(self.n), has_drift.astype(float)], axis=1)
-             * self.tests)[:, :, None]
-        g_sig = (true0[None] - F[..., 0]) * use                 # (n, 2, window)
-        inv_var = np.zeros(self.n)
-        inv_var[valid] = 1.0 / var[valid]
+        use = (valid[:, None] & self.live)[:, None, :] * self._allowed[1][:, :, None]
+        g_sig = np.empty(self.d.shape)
+        np.subtract(age, F[:, 0, :, 0], out=g_sig[:, 0])
+        np.subtract(0.5 * age * age, F[:, 1, :, 0], out=g_sig[:, 1])
+        g_sig *= use
+        inv_var = np.divide(1.0, var, out=np.zeros(self.n), where=valid)
         gw = g_sig * inv_var[:, None, None]
-        res = np.where(valid, residual, 0.0)
-        self.d += gw * res[:, None, None]
+        self.d += gw * np.where(valid, residual, 0.0)[:, None, None]
         self.C += gw * g_sig
         F += g_sig[..., None] * gain[:, None, None, :]
-        stat = np.zeros_like(self.C)
-        np.divide(self.d * self.d, self.C, out=stat, where=self.C > 0)
+        stat = np.divide(self.d * self.d, self.C, out=np.zeros(self.C.shape), where=self.C > 0)
+        hot = stat > self.threshold
+        if not hot.any():
+            return []
         alarms = []
-        if not (stat > self.threshold).any():
-            return alarms
-        hot = np.flatnonzero((stat > self.threshold).any(axis=(1, 2)))
-        for i in hot:
+        for i in np.flatnonzero(hot.any(axis=(1, 2))):
             h, slot = np.unravel_index(int(np.argmax(stat[i])), stat[i].shape)
             size = self.d[i, h, slot] / self.C[i, h, slot]
             unc = 1.0 / math.sqrt(self.C[i, h, slot])
@@ -179,16 +172,15 @@ class SignatureGLR:
     def state_dict(self) -> dict:
         return {"F": self.F.copy(), "d": self.d.copy(), "C": self.C.copy(),
                 "onset_t": self.onset_t.copy(), "onset_mjd": self.onset_mjd.copy(),
-                "live": self.live.copy(), "head": np.array(self.head),
-                "count": np.array(self.count)}
+                "live": self.live.copy(), "head": np.array(self.head)}
 
     def load_state(self, state: dict) -> None:
         for key in ("F", "d", "C", "onset_t", "onset_mjd"):
             setattr(self, key, np.array(state[key], dtype=float))
         self.live = np.array(state["live"], dtype=bool)
         self.head = int(state["head"])
-        self.count = int(state["count"])
         self.n = self.F.shape[0]
+        self._allowed = None
 
 
 def frozen_prediction_covariance(dt_s: np.ndarray, prior_cov: np.ndarray, q: np.ndarray,

@@ -92,11 +92,8 @@ class DetectionSettings:
         doc="the best hypothesis must beat the second by this much (log-likelihood ratio x2)")
     window_epochs: int = setting(
         48, minimum=4, maximum=1000,
-        doc="onsets (one per epoch) kept by the slow-change test for frequency steps")
-    long_window_days: float = setting(
-        10.0, unit="d", minimum=0.0,
-        doc="span of the onsets (20, evenly spaced) of the long test for drift changes and "
-            "small frequency steps; 0 turns it off")
+        doc="onsets (one per epoch) kept by the slow-change test (frequency steps, drift "
+            "changes)")
 
 
 @dataclass(frozen=True)

@@ -46,8 +46,6 @@ ABSENT, PROBATION, ACTIVE, EXCLUDED, REMOVED, MONITOR = 0, 1, 2, 3, 4, 5
 STATE_NAMES = {ABSENT: "absent", PROBATION: "probation", ACTIVE: "active",
                EXCLUDED: "excluded", REMOVED: "removed", MONITOR: "monitor"}
 
-#: Onsets of the long slow-change test.
-_LONG_SLOTS = 20
 #: Epochs over which a clock must be "in family" before it is (re-)admitted.
 FAMILY_EPOCHS = 24
 #: 99 % point of chi2(n)/n for n = 0..FAMILY_EPOCHS (index n; n = 0 unused).
@@ -173,17 +171,8 @@ class TimeScaleEngine:
         self.episodes: dict[int, _Episode] = {}
         rate = detection.false_alarm_rate
         self.h_event = glr_threshold(0.5 * rate)
-        # frequency steps: one onset per epoch; drift changes and small frequency steps: 20
-        # onsets over the long window (the budget split evenly between the two)
         self.slow = SignatureGLR(n, detection.window_epochs,
-                                 window_threshold(0.25 * rate, detection.window_epochs),
-                                 tests=(True, False))
-        stride = max(1, int(round(detection.long_window_days * SECONDS_PER_DAY
-                                  / (_LONG_SLOTS * self.tau0_s))))
-        self.slow_long = SignatureGLR(n, _LONG_SLOTS,
-                                      window_threshold(0.25 * rate, _LONG_SLOTS), stride=stride,
-                                      tests=(True, True)) \
-            if detection.long_window_days > 0 else None
+                                 window_threshold(0.25 * rate, detection.window_epochs))
         self.events: list[Event] = []
         self.family = np.full((FAMILY_EPOCHS, n), np.nan)   # standardised BTSE residuals^2
         # noise tracking: running mean of each clock's squared standardised residual
@@ -497,7 +486,7 @@ class TimeScaleEngine:
         result = None
         if upd.size:
             result = self.filter.update(z[upd] - z[pivot], upd, pivot,
-                                        chol=None if resolved else chol)
+                                        chol=None if resolved else chol, symmetrize=False)
             self.last_update_t[upd] = t_s
             self.last_update_t[pivot] = t_s
         self.filter.project(self.frame_weights)
@@ -507,14 +496,12 @@ class TimeScaleEngine:
             gain = self.filter.relative_gains(result, pivot, self.frame_weights)
         else:
             gain = np.zeros((self.n, 3))
-        banks = (self.slow,) if self.slow_long is None else (self.slow, self.slow_long)
-        for bank in banks:
-            for i, kind, onset_mjd, size, unc, stat, corr in bank.step(
-                    self._t_prev, self._mjd_prev, self.t - self._t_prev, self.t, gain, r, var,
-                    valid & ~decided, self.has_drift):
-                self._slow_change(i, kind, onset_mjd, size, unc, stat, corr)
-                clean[i] = False
-                decided[i] = True
+        for i, kind, onset_mjd, size, unc, stat, corr in self.slow.step(
+                self._t_prev, self._mjd_prev, self.t - self._t_prev, self.t, gain, r, var,
+                valid, self.has_drift):
+            self._slow_change(i, kind, onset_mjd, size, unc, stat, corr)
+            clean[i] = False
+            decided[i] = True
         return pivot
 
     def _fallback_readout(self, z, members, pivot, est, dt):
@@ -660,8 +647,6 @@ class TimeScaleEngine:
 
     def _reset_slow(self, i: int) -> None:
         self.slow.reset(i)
-        if self.slow_long is not None:
-            self.slow_long.reset(i)
 
     def _reset_tracking(self, i: int) -> None:
         self.z2_mean[i] = 1.0
@@ -719,8 +704,6 @@ class TimeScaleEngine:
                  "frequency_prior": np.array([s.frequency_prior for s in self.setups]),
                  "drift_prior": np.array([s.drift_prior_per_s for s in self.setups]),
                  "filter": self.filter.state_dict(), "slow": self.slow.state_dict()}
-        if self.slow_long is not None:
-            state["slow_long"] = self.slow_long.state_dict()
         for name in self._SCALARS:
             state[name] = float(getattr(self, name))
         for name in self._ARRAYS:
@@ -746,8 +729,6 @@ class TimeScaleEngine:
         eng = cls(state["clocks"], float(state["tau0_s"]), setups, ensemble, detection)
         eng.filter = EnsembleFilter.from_state(state["filter"])
         eng.slow.load_state(state["slow"])
-        if eng.slow_long is not None and "slow_long" in state:
-            eng.slow_long.load_state(state["slow_long"])
         for name in cls._SCALARS:
             value = float(state[name])
             setattr(eng, name, int(value) if name in ("epoch", "_weights_due") else value)
@@ -800,9 +781,7 @@ class TimeScaleEngine:
                            "active": np.concatenate([f["active"], np.zeros(k, bool)]),
                            "q": np.vstack([f["q"], np.zeros((k, 3))]),
                            "r": np.concatenate([f["r"], np.zeros(k)])}
-        for bank in ("slow", "slow_long"):
-            if bank not in state:
-                continue
+        for bank in ("slow",):
             sl = state[bank]
             state[bank] = dict(
                 sl, F=np.concatenate([sl["F"], np.zeros((k,) + sl["F"].shape[1:])]),
