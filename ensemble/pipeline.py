@@ -115,11 +115,52 @@ def _prepare_roles(meas: Measurements, cfg: Config, known=()) -> dict:
     return clocks
 
 
+class _OutputTracker:
+    """Phase and frequency of a measured steered output relative to the scale.
+
+    The output is a monitor channel (never in the ensemble): a two-state Kalman filter follows
+    its offset from the scale, with the commanded frequency changes as known inputs
+    (x_{k+1} = x_k + (y_k + u) dt, y_{k+1} = y_k + u), the channel's noise levels as process
+    noise and its white PM as measurement noise.
+    """
+
+    def __init__(self, noise, x=None, p=None, u: float = 0.0):
+        self.noise = noise
+        self.x = None if x is None else np.array(x, dtype=float)
+        self.p = None if p is None else np.array(p, dtype=float)
+        self.u = float(u)
+
+    def step(self, dt: float, offset: float):
+        from .model.clockmodel import process_noise, transition_matrix
+
+        if self.x is None:
+            if not np.isfinite(offset):
+                return (math.nan, math.nan), None
+            self.x = np.array([offset, 0.0])
+            self.p = np.diag([self.noise.r_s2, 1e-22])
+            return tuple(self.x), self.p.copy()
+        if dt > 0:
+            phi = transition_matrix(dt, 2)
+            self.x = phi @ self.x + np.array([dt, 1.0]) * self.u
+            self.p = phi @ self.p @ phi.T + process_noise(self.noise, dt, 2)
+        if np.isfinite(offset):
+            s = self.p[0, 0] + self.noise.r_s2
+            k = self.p[:, 0] / s
+            self.x = self.x + k * (offset - self.x[0])
+            i_kh = np.eye(2) - np.outer(k, [1.0, 0.0])
+            self.p = i_kh @ self.p @ i_kh.T + np.outer(k, k) * self.noise.r_s2
+        return tuple(self.x), self.p.copy()
+
+    def state_dict(self) -> dict:
+        return {"x": None if self.x is None else self.x.tolist(),
+                "p": None if self.p is None else self.p.tolist(), "u": self.u}
+
+
 class _Steering:
     """The steering controller fed from the engine's estimates each epoch."""
 
     def __init__(self, settings, clock: str, index: int, engine: TimeScaleEngine,
-                 controller=None, last_t: float | None = None):
+                 controller=None, last_t: float | None = None, tracker: dict | None = None):
         from .steering import SteeringController
 
         self.settings = settings
@@ -130,6 +171,11 @@ class _Steering:
             settings, noise=engine.noise[index])
         self.records = []
         self.last_t = last_t
+        self.tracker = None
+        if settings.output == "measured":
+            t = tracker or {}
+            self.tracker = _OutputTracker(engine.noise[index], t.get("x"), t.get("p"),
+                                          t.get("u", 0.0))
 
     @classmethod
     def start(cls, cfg: Config, meas: Measurements, engine: TimeScaleEngine) -> "_Steering":
@@ -145,20 +191,29 @@ class _Steering:
         index = engine.clocks.index(name)
         controller = SteeringController.from_state(state["controller"], settings=cfg.steering,
                                                    noise=engine.noise[index])
-        return cls(cfg.steering, name, index, engine, controller, float(state["last_t"]))
+        return cls(cfg.steering, name, index, engine, controller, float(state["last_t"]),
+                   state.get("tracker"))
 
     def state_dict(self) -> dict:
-        return {"clock": self.clock, "last_t": self.last_t,
-                "controller": self.controller.state_dict()}
+        state = {"clock": self.clock, "last_t": self.last_t,
+                 "controller": self.controller.state_dict()}
+        if self.tracker is not None:
+            state["tracker"] = self.tracker.state_dict()
+        return state
 
     def step(self, t_s: float, mjd: float, out: dict) -> None:
         i = self.index
-        state = (out["offset"][i], out["frequency"][i], out["drift"][i])
-        cov = self.engine.filter.cov_si(i) if self.engine.filter.active[i] else None
         dt = 0.0 if self.last_t is None else t_s - self.last_t
         self.last_t = t_s
-        self.records.append(self.controller.step(mjd, dt, state, cov,
-                                                 noise=self.engine.noise[i]))
+        if self.tracker is not None:
+            state, cov = self.tracker.step(dt, out["offset"][i])
+        else:
+            state = (out["offset"][i], out["frequency"][i], out["drift"][i])
+            cov = self.engine.filter.cov_si(i) if self.engine.filter.active[i] else None
+        record = self.controller.step(mjd, dt, state, cov, noise=self.engine.noise[i])
+        if self.tracker is not None:
+            self.tracker.u = record.frequency_correction
+        self.records.append(record)
 
     def take(self):
         from .steering.output import records_to_columns

@@ -263,7 +263,9 @@ def build_setups(phase_s: np.ndarray, elapsed_s: np.ndarray, reference: np.ndarr
     need = np.array([any(math.isnan(getattr(s, k)) for k in ("q1_s", "q2_per_s", "r_s2"))
                      for s in settings])
     estimates, messages = ({}, [])
-    to_estimate = present & ~monitor
+    # monitors (a measured steered output) are estimated too: their levels feed the steering
+    # tracker, never the scale
+    to_estimate = present
     if (need & to_estimate).any():
         estimates, messages = estimate_noise(stretch, tau0_s, to_estimate, clocks)
     setups, sources, noises = [], [], []
