@@ -95,7 +95,7 @@ def test_every_section_is_present(report):
         assert f">{title}</h2>" in text
     words = " ".join(page.text)
     for needle in ("archive conforms to format 1", "Cautions", "clock \u2212 scale",
-                   "not assessed yet", "scale (estimate)", "lab.csv", "phase_step", "outlier"):
+                   "scale (estimate)", "lab.csv", "phase_step", "outlier"):
         assert needle in words, needle
     for clock in ("H1", "H2", "C1", "C2", "R1"):
         assert f"<td>{clock}</td>" in text
@@ -153,6 +153,56 @@ def test_days_limits_the_time_plots(lab, capsys, tmp_path):
     assert code == 0
     assert out == f"report written: {tmp_path / 'rep' / 'index.html'}\n"
     assert "the last 3 days" in (tmp_path / "rep" / "index.html").read_text(encoding="utf-8")
+
+
+def _no_assessment_api(monkeypatch):
+    import ensemble.assess
+
+    monkeypatch.delattr(ensemble.assess, "assess_archive", raising=False)
+
+
+def test_without_an_assessment_a_notice_is_shown(lab, monkeypatch):
+    from types import SimpleNamespace
+
+    from ensemble import open_archive
+    from ensemble.report.assessment import NOT_ASSESSED, assessment_view
+    from ensemble.report.sections import assessment
+
+    folder, archive = lab
+    _no_assessment_api(monkeypatch)
+    with open_archive(archive) as a:
+        view = assessment_view(a, archive)
+    assert view.source == "none" and view.notice == NOT_ASSESSED
+    text = assessment(SimpleNamespace(assessment=view))
+    assert "not assessed yet: run &#x27;ensemble assess ARCHIVE.h5&#x27;" in text
+
+
+def test_the_assessment_api_is_called_when_the_archive_has_none(lab, monkeypatch):
+    import ensemble.assess
+    from ensemble import open_archive
+    from ensemble.report.assessment import assessment_view
+
+    folder, archive = lab
+    calls = []
+
+    def fake(path, write=True):
+        calls.append((path, write))
+        return [{"clock": "H1", "verdict": "watch", "reasons": ["drift grew"]}]
+
+    monkeypatch.setattr(ensemble.assess, "assess_archive", fake, raising=False)
+    with open_archive(archive) as a:
+        view = assessment_view(a, archive)
+    assert calls == [(str(archive), False)]           # asked not to write
+    assert view.source == "computed" and view.counts() == {"watch": 1}
+    assert view.verdicts.rows == [["H1", "watch", ["drift grew"]]]
+
+    def broken(path):
+        raise RuntimeError("no evidence table")
+
+    monkeypatch.setattr(ensemble.assess, "assess_archive", broken, raising=False)
+    with open_archive(archive) as a:
+        view = assessment_view(a, archive)
+    assert view.source == "none" and "RuntimeError: no evidence table" in view.notice
 
 
 def test_the_assessment_group_is_shown(lab, tmp_path):

@@ -224,18 +224,3 @@ def test_results_of_the_assessment_api_in_several_forms():
         {"clock": "H1", "verdict": "keep"}]
     assert asm.records({"clocks": [{"clock": "H1"}]}) == [{"clock": "H1"}]
     assert asm.records(42) is None
-
-
-def test_without_the_assessment_api_a_notice_is_shown(monkeypatch):
-    import builtins
-
-    real_import = builtins.__import__
-
-    def no_assess(name, globals=None, locals=None, fromlist=(), level=0):
-        if fromlist and "assess_archive" in fromlist:
-            raise ImportError("no assess_archive")
-        return real_import(name, globals, locals, fromlist, level)
-
-    monkeypatch.setattr(builtins, "__import__", no_assess)
-    view = asm.computed("lab.h5")
-    assert view.source == "none" and view.notice == asm.NOT_ASSESSED

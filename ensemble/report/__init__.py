@@ -17,26 +17,29 @@ __all__ = ["write_report"]
 
 
 def write_report(archive_path, out_dir, *, days=None):
-    """Write the report of an archive; see :func:`ensemble.report.build.write_report`."""
+    """Write the HTML report of an archive into a folder (atomically).
+
+    Parameters
+    ----------
+    archive_path : path-like
+        An archive written by ``ensemble run`` (opened read-only).
+    out_dir : path-like
+        Report folder (index.html and PNG images); its parent must exist.  Replaced as a whole
+        if it holds an earlier report; refused if it holds other files.
+    days : float, optional
+        Show only the last ``days`` days (default: everything). [d]
+
+    Returns
+    -------
+    pathlib.Path
+        Path of index.html.
+
+    Raises
+    ------
+    InputError
+        Not an archive, ``days`` not > 0, or ``out_dir`` unusable (see
+        :func:`ensemble.report.build.write_report`).
+    """
     from .build import write_report as _write
 
     return _write(archive_path, out_dir, days=days)
-
-
-write_report.__doc__ = """Write the HTML report of an archive into a folder (atomically).
-
-Parameters
-----------
-archive_path : path-like
-    An archive written by ``ensemble run``.
-out_dir : path-like
-    Report folder (index.html and PNG images); replaced as a whole if it holds an earlier
-    report.
-days : float, optional
-    Show only the last ``days`` days (default: everything). [d]
-
-Returns
--------
-pathlib.Path
-    Path of index.html.
-"""

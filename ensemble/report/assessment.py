@@ -239,12 +239,11 @@ def computed(archive_path) -> AssessmentView:
             kwargs["write"] = False
     except (TypeError, ValueError):
         pass
-    from ..errors import EnsembleError
     try:
         result = assess_archive(str(archive_path), **kwargs)
-    except EnsembleError as exc:
-        return AssessmentView("none", f"the assessment could not be computed ({exc}); "
-                                      f"{NOT_ASSESSED}")
+    except Exception as exc:  # noqa: BLE001 - the report shows the failure instead of dying
+        return AssessmentView("none", f"the assessment could not be computed "
+                                      f"({type(exc).__name__}: {exc}); {NOT_ASSESSED}")
     rows = records(result)
     if rows is None:
         return AssessmentView("none", f"assess_archive returned a {type(result).__name__}, "

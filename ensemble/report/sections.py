@@ -7,6 +7,8 @@ a readable prefix: offsets in ns, frequencies dimensionless, drift per day.
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 
 from .page import (Picture, esc, num, picture, reasons_cell, section, table, utc_of_mjd,
@@ -41,7 +43,7 @@ def header(data, version: str, made_utc: str) -> str:
     """Title, span, software versions and the verifier's verdict."""
     s = data.summary
     span = s["span"]
-    name = data.path.rsplit("/", 1)[-1]
+    name = os.path.basename(data.path)
     lines = [f"<h1>Ensemble report: {esc(name)}</h1>"]
     if span:
         step = duration_text(span["interval_s"]) if span["interval_s"] else "?"
@@ -222,7 +224,7 @@ def stability(data, pictures: list[Picture]) -> str:
     if st is None:
         return section("stability", TITLES["stability"],
                        '<p class="notice">No stability estimate: the N-cornered hat needs at '
-                       'least three clocks with data in the shown span.</p>')
+                       'least three clocks with data, and enough epochs, in the shown span.</p>')
     cols = _tau_columns(st)
     headers = ["clock"] + [f"\u03c4 = {esc(duration_text(st.tau_s[k]))}" for k in cols]
     rows = [[esc(c)] + [_stability_cell(st, i, k) for k in cols]
