@@ -252,8 +252,11 @@ def stability(data, pictures: list[Picture]) -> str:
     ]
     notes = "".join(f"<li>{esc(n)}</li>" for n in st.notes[:30])
     more = f"<li>and {len(st.notes) - 30} more</li>" if len(st.notes) > 30 else ""
-    body = ("\n".join(picture(p) for p in pictures) + "".join(text)
-            + table(headers, rows, numeric=tuple(range(1, len(headers))))
+    values = table(headers, rows, numeric=tuple(range(1, len(headers))))
+    if len(rows) > LONG_TABLE:
+        values = (f"<details open><summary>{len(rows) - 1} clocks and the scale (click to "
+                  f"fold)</summary>{values}</details>")
+    body = ("\n".join(picture(p) for p in pictures) + "".join(text) + values
             + (f'<ul class="plain small">{notes}{more}</ul>' if notes else ""))
     return section("stability", TITLES["stability"], body)
 
