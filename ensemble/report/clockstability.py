@@ -213,7 +213,11 @@ def _edf(alpha: int, m: int, n_terms: int, n_points: int) -> float:
 
 
 def _noise_types(x_s: np.ndarray, tau0_s: float, factors) -> np.ndarray:
-    """alpha (int, or a large sentinel when unknown) of each clock's offset at each factor."""
+    """Power-law exponent alpha of each clock's offset series at each factor, shape (N, n_m).
+
+    Where too few samples remain to identify it, the value of the next shorter factor is
+    carried; white FM (0) when there is none.
+    """
     n = x_s.shape[1]
     alphas = np.zeros((n, len(factors)), dtype=int)
     for i in range(n):
