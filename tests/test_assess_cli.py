@@ -154,3 +154,13 @@ def test_two_clocks_are_assessed_without_a_hat(capsys, tmp_path):
         assert any("not estimated" in t for t in r["reasons"])
         assert all(p["value"] is None for p in r["hdev"])
         assert np.isfinite(r["frequency"]["value"])
+
+
+def test_run_record_mode_is_checked(archive):
+    from ensemble.archive import ArchiveWriter
+
+    with pytest.raises(ValueError, match="mode must be one of"):
+        with ArchiveWriter.open_for_append(archive) as w:
+            w.add_run_record("x", mode="repair")
+    with open_archive(archive) as a:
+        assert a.provenance["mode"].tolist() == ["create"]

@@ -22,8 +22,9 @@ def test_demo_ageing_cesium_is_singled_out(capsys, tmp_path):
     assert c4["verdict"] in ("watch", "retire")
     assert c4["reasons"][0].startswith("white-FM noise rising")
     assert c4["ageing"]["white_fm"]["significant"]
-    # the fitted growth of its white-FM Allan deviation, against the true 2.5 (to 3.4 in the
-    # span of the window centres it is 2.5 at the end over 1 at the start)
+    # the fitted growth of its white-FM Allan deviation over the span, against the true 2.5
+    # (a fitted exponential trend through a linear growth; 1.7 to 3.2 allows for that and for
+    # the spread of 13 overlapping windows, about 6 effective)
     assert 1.7 < c4["ageing"]["white_fm_growth"] < 3.2
     for name in ("C1", "C2", "C3", "H1", "H2", "R1", "R2"):
         assert rows[name]["verdict"] == "keep", rows[name]["reasons"]

@@ -58,3 +58,11 @@ def test_bad_values_name_the_key(table, key):
 def test_settings_are_frozen():
     with pytest.raises(dataclasses.FrozenInstanceError):
         AssessmentSettings().trend_alpha = 0.5
+
+
+def test_docs_list_every_key():
+    from conftest import ROOT
+
+    text = (ROOT / "docs" / "assessment.md").read_text(encoding="utf-8")
+    for f in dataclasses.fields(AssessmentSettings):
+        assert f"| `{f.name}` |" in text, f.name

@@ -22,7 +22,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import pathlib
 import tomllib
 import warnings
 
@@ -45,13 +44,6 @@ from .tracking import offset_noise, track_offsets
 from .verdict import decide, what_if_role
 from .whatif import ReformedScale, detrend_quadratic, reform_scales, scale_weights
 from .windows import ageing, window_layout
-
-def _columns(eff, cols):
-    """EffectiveWeights restricted to some averaging-factor columns."""
-    return dataclasses.replace(eff, m=eff.m[cols], weights=eff.weights[cols],
-                               remainder_variance=eff.remainder_variance[cols],
-                               explained=eff.explained[cols], n_terms=eff.n_terms[cols])
-
 
 __all__ = ["assess_archive", "assess", "read_archive", "merged_config", "ArchiveInputs"]
 
@@ -232,7 +224,7 @@ def assess(inputs: ArchiveInputs, cfg: Config, settings: AssessmentSettings, *,
         flat = detrend_quadratic(clean_g, elapsed_g)
         allan = own_stability(flat, tau0, grid, "allan", clocks=clocks,
                               confidence=s.confidence)
-    roles = [cfg.clock(c).role for c in clocks]
+    roles = [_role(cfg, c) for c in clocks]
     drift_state = np.array([_drift_state(cfg, c) for c in clocks])
     noise_off = offset_noise(clean_g, tau0, span_days * SECONDS_PER_DAY)
     track = track_offsets(inputs.elapsed_s, clean, noise_off, drift_state)
@@ -291,6 +283,14 @@ def assess(inputs: ArchiveInputs, cfg: Config, settings: AssessmentSettings, *,
         scale_adev_std=pick(scale["adev_std"]), scale_hdev=pick(scale["hdev"]),
         scale_hdev_std=pick(scale["hdev_std"]), what_if=bool(what_if), windows=layout.note,
         messages=tuple(messages), details=details)
+
+
+def _role(cfg: Config, name: str) -> str:
+    """The clock's role; a measured steered output is a monitor, as in the run."""
+    st = cfg.sections.get("steering")
+    if st is not None and st.output == "measured" and st.output_channel == name:
+        return "monitor"
+    return cfg.clock(name).role
 
 
 def _drift_state(cfg: Config, name: str) -> bool:
@@ -444,3 +444,8 @@ def _what_if(inputs, cfg, s, roles, mean_w, judged, cols, allan, messages, progr
     return out
 
 
+def _columns(eff, cols):
+    """EffectiveWeights restricted to some averaging-factor columns."""
+    return dataclasses.replace(eff, m=eff.m[cols], weights=eff.weights[cols],
+                               remainder_variance=eff.remainder_variance[cols],
+                               explained=eff.explained[cols], n_terms=eff.n_terms[cols])

@@ -84,16 +84,17 @@ def table_text(a: Assessment) -> str:
         if a.what_if:
             row += f" {_what_if_cell(r):>8}"
         lines.append(row)
-    lines += ["",
-              "HDEV: own Hadamard deviation (<x: not separable, at most x); x typ: largest "
-              "HDEV / typical of the type; WFM: growth of the white-FM level over the span "
-              "(* significant); f/p/o: frequency steps / phase steps / outliers; weight: mean; "
+    legend = ("HDEV: own Hadamard deviation (<x: not separable, at most x); x typ: largest HDEV "
+              "/ typical of the type; WFM: growth of the white-FM level over the span (* "
+              "significant); f/p/o: frequency steps / phase steps / outliers; weight: mean; "
               "to ...: holdover within the budget (95 % bound)"
-              + ("; w/o it: change of the scale's Allan deviation without the clock" if a.what_if
-                 else "")]
-    lines += ["", "scale (estimated own stability): "
-              + ", ".join(f"ADEV {t} {v:.2e} +/- {u:.1e}" for t, v, u in
-                          zip(taus, a.scale_adev, a.scale_adev_std))]
+              + ("; w/o it: largest change of the scale's Allan deviation without the clock"
+                 if a.what_if else ""))
+    lines += [""] + textwrap.wrap(legend, _WIDTH)
+    lines += [""] + textwrap.wrap(
+        "scale (estimated own stability): " + ", ".join(
+            f"ADEV {t} {v:.2e} +/- {u:.1e}" for t, v, u in
+            zip(taus, a.scale_adev, a.scale_adev_std)), _WIDTH, subsequent_indent="  ")
     lines.append("")
     for r in a.records:
         lines.append(f"{r.clock}: {r.verdict}" + (" (repair suggested)" if r.repair_suggested
@@ -105,7 +106,7 @@ def table_text(a: Assessment) -> str:
         lines += ["", "notes:"]
         for m in a.messages:
             lines += textwrap.wrap(m, _WIDTH, initial_indent="  - ", subsequent_indent="    ")
-    lines += ["", ADVISORY]
+    lines += [""] + textwrap.wrap(ADVISORY, _WIDTH)
     return "\n".join(lines)
 
 
@@ -134,7 +135,8 @@ def _what_if_cell(r: ClockAssessment) -> str:
     if w.error or not np.isfinite(w.adev_change).any():
         return "n/a"
     k = int(np.nanargmax(np.abs(w.adev_change)))
-    return f"{100 * w.adev_change[k]:+.3g}%"
+    c = w.adev_change[k]
+    return f"x{1 + c:.3g}" if c >= 1.0 else f"{100 * c:+.2g}%"
 
 
 # ----------------------------------------------------------------------------- JSON
@@ -196,7 +198,7 @@ def record_dict(r: ClockAssessment, taus) -> dict:
         "budgets_s": _list(ho.budgets_s), "time_to_budget_s": _list(ho.time_to_budget_s),
         "beyond_horizon": [not math.isfinite(t) for t in ho.time_to_budget_s],
         "horizon_s": _num(ho.horizon_s), "coverage": _num(ho.coverage),
-        "bound_s": {f"{t:g}": _num(v) for t, v in ho.bound_s.items()}}
+        "bound_s": {f"{t:.0f}": _num(v) for t, v in ho.bound_s.items()}}
     w = r.what_if
     out["what_if"] = None if w is None else {
         "role": w.role, "adev_change": _list(w.adev_change),

@@ -43,7 +43,8 @@ class AssessmentSettings:
             "same step-to-length ratio")
     min_window_days: float = setting(
         2.0, unit="d", exclusive_minimum=True, minimum=0.0, maximum=3650.0,
-        doc="shortest window; data too short for min_windows such windows get no trend test")
+        doc="shortest window: a span too short for min_windows windows of this length gets no "
+            "trend test")
     trend_alpha: float = setting(
         0.01, unit="1", exclusive_minimum=True, minimum=0.0, maximum=0.2,
         doc="significance level of the ageing trend tests (one test per clock and statistic)")

@@ -54,6 +54,15 @@ def duration_text(t_s: float) -> str:
     return f"{t_s / (365.25 * SECONDS_PER_DAY):.3g} years"
 
 
+def budget_text(budget_s: float) -> str:
+    """A time-error budget in words: 1e-7 -> '100 ns', 1e-6 -> '1 \u00b5s'."""
+    if budget_s < 1e-6:
+        return f"{budget_s * 1e9:.4g} ns"
+    if budget_s < 1e-3:
+        return f"{budget_s * 1e6:.4g} \u00b5s"
+    return f"{budget_s * 1e3:.4g} ms"
+
+
 def type_label(key: str | None) -> str:
     """Plain-words label of a clock type."""
     return PRESETS[key].label if key in PRESETS else str(key)
@@ -287,23 +296,30 @@ def _what_if(rec, tau_s, s: AssessmentSettings) -> list[Finding]:
     if w.role == "leans on":
         return [Finding("note", (
             f"the scale leans on it: without it the scale's estimated Allan deviation {at} "
-            f"rises by {100 * change:.3g} % +/- {100 * std:.2g} %; arrange a replacement "
-            f"before taking it out"))]
+            f"{change_text(change, std)} (to {w.scale_adev_without[k]:.2e}); arrange a "
+            f"replacement before taking it out"))]
     if w.role == "not needed":
         return [Finding("note", (
             f"the scale does not need it: leaving it out changes the scale's estimated Allan "
             f"deviation by less than {s.what_if_negligible_percent:g} % at every judged "
             f"averaging time (largest {100 * change:+.2g} % {at})"))]
     return [Finding("note", (
-        f"leaving it out changes the scale's estimated Allan deviation by {100 * change:+.2g} % "
-        f"+/- {100 * std:.2g} % {at}"))]
+        f"without it the scale's estimated Allan deviation {at} {change_text(change, std)}"))]
+
+
+def change_text(change: float, std: float) -> str:
+    """'rises by 12 % +/- 3 %', or for large changes 'rises 19.1-fold (+/- 2.7)'."""
+    if change >= 1.0:
+        return f"rises {1 + change:.3g}-fold (+/- {std:.2g})"
+    verb = "rises" if change >= 0 else "falls"
+    return f"{verb} by {100 * abs(change):.2g} % +/- {100 * std:.2g} %"
 
 
 def _holdover(rec) -> list[Finding]:
     h = rec.holdover
     if h is None:
         return []
-    parts = [f"{b * 1e9:g} ns for {duration_text(t)}" for b, t in
+    parts = [f"{budget_text(b)} for {duration_text(t)}" for b, t in
              zip(h.budgets_s, h.time_to_budget_s)]
     return [Finding("note", (
         f"alone from the last epoch (its offset, frequency and drift corrected) it would stay "
