@@ -29,11 +29,12 @@ def build_archive(folder, scenario, name="lab"):
 @pytest.fixture(scope="module")
 def cesium_lab(tmp_path_factory):
     # Five cesium beams of one type.  C5's white FM doubles over the span (linear growth of
-    # the Allan deviation, simulator truth); C4 gets three frequency steps of 5e-13.
+    # the Allan deviation, simulator truth); C4 gets three frequency steps of 1e-12 (large
+    # enough for the engine to detect each: about 10 times the 1-d Allan deviation).
     clocks = [{"name": f"C{i}", "type": "cesium_standard", "frequency_offset": 1e-13 * i}
               for i in range(1, 6)]
     steps = [{"kind": "frequency_step", "clock": "C4", "day": d, "size": s}
-             for d, s in ((12.0, 5e-13), (30.0, -5e-13), (45.0, 5e-13))]
+             for d, s in ((12.0, 1e-12), (30.0, -1e-12), (45.0, 1e-12))]
     scenario = lab_scenario(clocks, 60.0, seed=5, white_pm_s=3e-12,
                             anomalies=[{"kind": "noise_growth", "clock": "C5", "factor": 2.0}]
                             + steps)

@@ -22,7 +22,7 @@ AUTO_TYPE_CHOICES = ("closest", "skip")
 
 @dataclass(frozen=True)
 class AssessmentSettings:
-    """Validated ``[assessment]`` settings (build with :func:`ensemble.settings.build_section`)."""
+    """The [assessment] section: what `ensemble assess` computes and its verdict thresholds."""
 
     taus_s: tuple = setting(
         (3600.0, 86400.0, 864000.0), unit="s",
