@@ -7,9 +7,13 @@ import h5py
 import numpy as np
 import pytest
 
-from ensemble import cli, open_archive
+from ensemble import append, cli, open_archive
 from ensemble.archive import verify_archive
-from ensemble.simulate import lab_scenario
+from ensemble.assess import assess_archive
+from ensemble.assess.core import read_archive
+from ensemble.pipeline import run_to_archive
+from ensemble.simulate import lab_scenario, simulate
+from ensemble.simulate.csvout import write_long_csv
 
 from test_assess_verdicts import build_archive
 
@@ -164,3 +168,21 @@ def test_run_record_mode_is_checked(archive):
             w.add_run_record("x", mode="repair")
     with open_archive(archive) as a:
         assert a.provenance["mode"].tolist() == ["create"]
+
+
+def test_appended_archive_is_compared_like_one_run(tmp_path):
+    # An archive continued with --append under the same configuration is the scale of one run
+    # (docs/engine.md, incremental runs), so the what-if compares with it directly.
+    sim = simulate(lab_scenario({"hydrogen_maser": 1, "cesium_standard": 3}, 16.0, seed=4))
+    first, second = tmp_path / "a.csv", tmp_path / "b.csv"
+    half = sim.n_epochs // 2
+    write_long_csv(first, sim.mjd[:half], sim.clocks, sim.phase_s[:half], sim.reference[:half])
+    write_long_csv(second, sim.mjd[half:], sim.clocks, sim.phase_s[half:],
+                   sim.reference[half:])
+    path = tmp_path / "lab.h5"
+    run_to_archive(first, path)
+    append(second, path)
+    assert read_archive(path).one_run
+    a = assess_archive(path, what_if=True)
+    assert not any("differs from the archive" in m for m in a.messages)
+    assert a.record("H01").what_if.role == "leans on"

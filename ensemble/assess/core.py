@@ -71,7 +71,7 @@ class ArchiveInputs:
     reference: np.ndarray
     events: object
     config: Config
-    n_runs: int = 1
+    one_run: bool = True
 
     def measurements(self) -> Measurements:
         """The archive's measurements, to re-form the scale."""
@@ -111,15 +111,18 @@ def read_archive(path) -> ArchiveInputs:
             state=np.asarray(a.state.to_numpy()),
             phase_s=np.asarray(a.array("/measurements/phase"), dtype=float),
             reference=np.asarray(a.array("/measurements/reference")),
-            events=a.events, config=cfg, n_runs=_scale_runs(a.provenance))
+            events=a.events, config=cfg, one_run=_formed_as_one_run(a.provenance))
     return inputs
 
 
-def _scale_runs(provenance) -> int:
-    """Runs that wrote epochs of the scale (assessment-only records do not count)."""
+def _formed_as_one_run(provenance) -> bool:
+    """Whether the archive's scale is what one run over all its data gives: every run that
+    wrote epochs used the same configuration (an append with the same configuration equals one
+    run, docs/engine.md section 6; assessment-only records do not count)."""
     if not len(provenance):
-        return 1
-    return int(np.sum(provenance["mode"].isin(["create", "append"]).to_numpy()))
+        return True
+    runs = provenance[provenance["mode"].isin(["create", "append"])]
+    return int(runs["config_sha256"].nunique()) <= 1
 
 
 def merged_config(archive_cfg: Config, override: Config | None) -> Config:
@@ -398,16 +401,16 @@ def _what_if(inputs, cfg, s, roles, mean_w, judged, cols, allan, messages, progr
              eff_archive) -> dict:
     """Leave-one-out: the scale's estimated Allan deviation without each weighted member.
 
-    An archive written by one run is the full scale as one run forms it, so it serves as the
-    reference; an archive extended by several runs is compared with the full scale re-formed
-    in one run, like the leave-one-out scales.
+    An archive formed as one run would form it (one run, or appends with the same
+    configuration) serves as the full scale; otherwise the full scale is re-formed in one run,
+    like the leave-one-out scales, so that every comparison is like with like.
     """
     candidates = [c for c, role, w in zip(inputs.clocks, roles, mean_w)
                   if role == "member" and w > 0]
     if not judged.size or not candidates:
         messages.append("what-if skipped: no judged averaging time or no weighted member clock")
         return {}
-    single = inputs.n_runs == 1 and eff_archive is not None
+    single = inputs.one_run and eff_archive is not None
     runs = reform_scales(inputs.measurements(), cfg, candidates, judged,
                          workers=s.what_if_workers, progress=progress, full=not single)
     nan = np.full(judged.size, np.nan)
@@ -423,8 +426,8 @@ def _what_if(inputs, cfg, s, roles, mean_w, judged, cols, allan, messages, progr
     diff_w = float(np.max(np.abs(full.mean_weight - mean_w)))
     if not single and diff_w > 1e-6:
         messages.append(f"what-if: the scale re-formed in one run differs from the archive's "
-                        f"(mean weights by up to {diff_w:.2g}; the archive was probably formed "
-                        f"over several runs); each comparison uses the re-formed full scale")
+                        f"(mean weights by up to {diff_w:.2g}; its runs used different "
+                        f"configurations); each comparison uses the re-formed full scale")
     work, cov = allan.working[:, cols], allan.covariance[cols]
     v_full, _ = scale_variance(full.allan, work, cov)
     out = {}
