@@ -238,8 +238,8 @@ def write_assessment(path, a: Assessment, config_toml: str) -> None:
 
     content, units, desc = _group(a)
     content["assessed_utc"] = utc_now()
-    reasons = [(r.clock, k, text) for r in a.records for k, text in enumerate(r.reasons)]
-    longest = max([len(t.encode("utf-8")) for *_, t in reasons] + [1])
+    reasons = [json.dumps(list(r.reasons), ensure_ascii=False) for r in a.records]
+    longest = max([len(t.encode("utf-8")) for t in reasons] + [1])
     size = 256 * math.ceil(longest / 256)
     with ArchiveWriter.open_for_append(path) as w:
         w.write_group("/assessment", content, units=units, descriptions=desc,
@@ -247,23 +247,18 @@ def write_assessment(path, a: Assessment, config_toml: str) -> None:
                                   "advisory verdicts")
         w.write_table("/assessment/clocks", {
             "clock": list(a.clocks), "verdict": [r.verdict for r in a.records],
+            "reasons": reasons,
             "type_compared": [r.type_compared or "" for r in a.records],
             "repair_suggested": np.array([r.repair_suggested for r in a.records], dtype=np.int8)},
             (_field("clock", "str", "none", "clock identifier", 32),
              _field("verdict", "str", "none", "keep, watch or retire (advisory)", 8),
+             _field("reasons", "str", "none", "the reasons behind the verdict, most serious "
+                    "first: a JSON list of sentences with their numbers", size),
              _field("type_compared", "str", "none", "clock type whose typical levels the "
                     "clock was compared with ('' if none)", 32),
              _field("repair_suggested", "i1", "1", "1 if the evidence points to a repair "
                     "rather than to retirement")),
-            "verdict of each clock, in /clocks/name order")
-        w.write_table("/assessment/reasons", {
-            "clock": [c for c, _, _ in reasons], "rank": np.array([k for _, k, _ in reasons],
-                                                                 dtype=np.int32),
-            "text": [t for _, _, t in reasons]},
-            (_field("clock", "str", "none", "clock identifier", 32),
-             _field("rank", "i4", "1", "position in the clock's list (0: most serious)"),
-             _field("text", "str", "none", "the reason, a sentence with its numbers", size)),
-            "the reasons behind each verdict, most serious first")
+            "verdict of each clock and its reasons, in /clocks/name order")
         w.add_run_record(os.path.basename(str(path)), config_toml=config_toml, mode="assess")
 
 
