@@ -42,19 +42,16 @@ def add_parser(sub, parents) -> None:
 
 
 def _assess_and_report(archive: str, folder: str, quiet: bool) -> None:
-    """The assessment (stored in the archive) and the HTML report of a finished run."""
+    """The assessment (stored in the archive's /assessment) and the HTML report of a run."""
+    from ..assess.core import assess_archive
+    from ..assess.display import table_text, write_assessment
     from ..report import write_report
 
-    try:
-        from ..assess import assess_archive
-    except ImportError:          # pragma: no cover - assessment not part of this build
-        assess_archive = None
-    if assess_archive is not None:
-        assessment = assess_archive(archive, write=True)
-        if not quiet:
-            from ..assess.output import table_text
-            print()
-            print(table_text(assessment))
+    assessment = assess_archive(archive)
+    write_assessment(archive, assessment, assessment.details["config_toml"])
+    if not quiet:
+        print()
+        print(table_text(assessment))
     write_report(archive, folder)
 
 
