@@ -154,7 +154,11 @@ def _longest_run(flag: np.ndarray, days: np.ndarray) -> float:
 
 
 def clean_offsets(offset_s: np.ndarray, mjd: np.ndarray, clocks, events) -> np.ndarray:
-    """Offsets with detected outliers dropped and detected phase steps taken out.
+    """Offsets with detected outliers dropped and detected steps taken out.
+
+    Phase steps are subtracted from their epoch on, frequency steps as the ramp
+    c (t - t_k) and drift changes as d (t - t_k)^2 / 2, so that the clock's own stability is
+    judged on its noise; the events themselves are counted separately.
 
     Parameters
     ----------
@@ -164,7 +168,8 @@ def clean_offsets(offset_s: np.ndarray, mjd: np.ndarray, clocks, events) -> np.n
         Epochs. [d]
     clocks : sequence of str
     events : pandas.DataFrame
-        /events with magnitude in s for outliers and phase steps.
+        /events: magnitude in s for outliers and phase steps, 1 for frequency steps, 1/d for
+        drift changes (as the archive stores them).
 
     Returns
     -------
@@ -186,6 +191,10 @@ def clean_offsets(offset_s: np.ndarray, mjd: np.ndarray, clocks, events) -> np.n
             x[k, i] = np.nan
         elif row.kind == "phase_step" and np.isfinite(row.magnitude):
             x[k:, i] -= float(row.magnitude)
+        elif row.kind == "frequency_step" and np.isfinite(row.magnitude):
+            x[k:, i] -= float(row.magnitude) * (mjd[k:] - row.mjd) * 86400.0
+        elif row.kind == "drift_change" and np.isfinite(row.magnitude):
+            x[k:, i] -= 0.5 * float(row.magnitude) / 86400.0 * ((mjd[k:] - row.mjd) * 86400.0) ** 2
     return x
 
 

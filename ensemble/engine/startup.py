@@ -26,6 +26,7 @@ import numpy as np
 
 from ..model.clockmodel import ClockNoise
 from ..units import SECONDS_PER_DAY
+from .likelihood import refine_q2
 from .settings import ClockSettings, EnsembleSettings
 from .timescale import ClockSetup
 
@@ -83,7 +84,8 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
 
     Returns
     -------
-    (dict column -> ClockNoise or None, list of messages)
+    (dict column -> ClockNoise or None, list of messages, dict column -> (longest averaging
+    time [s], fitted Hadamard variance there [1]))
     """
     from ..stability.deviations import overlapping_avar_hvar
     from ..stability.edf import edf_greenhall
@@ -92,12 +94,12 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     messages: list[str] = []
     if idx.size < 3:
         return {int(i): None for i in idx}, ["fewer than three clocks: noise levels not "
-                                             "separable, typical levels used"]
+                                             "separable, typical levels used"], {}
     t = phase_s.shape[0]
     if t < _MIN_EPOCHS:
         return {int(i): None for i in idx}, [
             f"the start-up stretch has {t} epochs, fewer than the {_MIN_EPOCHS} needed to "
-            f"estimate noise levels; typical levels used"]
+            f"estimate noise levels; typical levels used"], {}
     avail = np.isfinite(phase_s[:, idx]).mean(axis=0)
     order = idx[np.argsort(-avail, kind="stable")]
     if idx.size <= 2 * _ANCHORS:
@@ -148,6 +150,7 @@ def _separate(idx, pairs, clock_names, ov, hvar, edf, match_tau_s, tau0_s, messa
     # half, as for two equal dominant clocks whose pairs with noisier clocks say little),
     # half of that quietest pair is the natural estimate.
     pair_arr = np.array(pairs)
+    long_term = {}
     match = match_tau_s if match_tau_s is not None else 48.0 * tau0_s
     # White PM belongs to the measurement system and shows only in the quietest pairs: take its
     # level from the quietest pair (half per channel), and keep a clock's own fitted value only
@@ -190,7 +193,12 @@ def _separate(idx, pairs, clock_names, ov, hvar, edf, match_tau_s, tau0_s, messa
         q2 = fit.noise.q2_per_s + 6.0 * FLICKER_HVAR * h1 / match
         nz = ClockNoise(fit.noise.q1_s, q2, 0.0, r_fit)
         out[int(i)] = nz if nz.q1_s > 0 else None
-    return out, messages
+        # Long-term stability for the frame weights: the fitted curve at the longest averaging
+        # time measured, taken as flat beyond it (a flicker floor).  Extrapolating a random
+        # walk fitted over a few days to the frame interval overstated it a hundredfold in
+        # simulation, and the q2 above is an effective level for the sampling interval.
+        long_term[int(i)] = (float(tau.max()), float(np.asarray(fit.fitted)[-1]))
+    return out, messages, long_term
 
 
 def _terms(n_points: int, with_r: bool) -> tuple:
@@ -262,12 +270,15 @@ def build_setups(phase_s: np.ndarray, elapsed_s: np.ndarray, reference: np.ndarr
     present = np.isfinite(stretch).mean(axis=0) >= 0.25
     need = np.array([any(math.isnan(getattr(s, k)) for k in ("q1_s", "q2_per_s", "r_s2"))
                      for s in settings])
-    estimates, messages = ({}, [])
+    estimates, messages, long_term = ({}, [], {})
     # monitors (a measured steered output) are estimated too: their levels feed the steering
     # tracker, never the scale
     to_estimate = present
     if (need & to_estimate).any():
-        estimates, messages = estimate_noise(stretch, tau0_s, to_estimate, clocks)
+        estimates, messages, long_term = estimate_noise(stretch, tau0_s, to_estimate, clocks)
+        drift_of = np.array([ensemble.drift_states if s.drift_state == "default"
+                             else s.drift_state == "yes" for s in settings])
+        estimates = refine_q2(stretch, t, estimates, drift_of)
     setups, sources, noises = [], [], []
     anchor = int(reference[0])
     span_s = max(float(t[-1]) if t.size else tau0_s, tau0_s)
@@ -297,8 +308,13 @@ def build_setups(phase_s: np.ndarray, elapsed_s: np.ndarray, reference: np.ndarr
         freq_prior = _FREQ_PRIOR if preset is None else max(preset.frequency_offset, 1e-15)
         drift_prior = (_DRIFT_PRIOR_PER_S if preset is None
                        else max(preset.drift_per_day, 1e-18) / SECONDS_PER_DAY)
+        frame_hvar = math.nan
+        if source == "estimated" and i in long_term:
+            tau_max, level = long_term[i]
+            frame_hvar = max(level, values["q1_s"] / ensemble.frame_interval_s)
         setup = ClockSetup(noise, drift_state=drift, monitor=bool(monitor[i]),
-                           frequency_prior=10 * freq_prior, drift_prior_per_s=10 * drift_prior)
+                           frequency_prior=10 * freq_prior, drift_prior_per_s=10 * drift_prior,
+                           frame_hvar=frame_hvar)
         setups.append(setup)
         sources.append("monitor" if monitor[i] else source)
         noises.append(noise)

@@ -69,6 +69,10 @@ class ClockSetup:
         Standard uncertainty of an unknown initial frequency [1].
     drift_prior_per_s : float
         Standard uncertainty of an unknown initial drift [1/s].
+    frame_hvar : float
+        The clock's Hadamard variance at the frame interval from its measured stability curve
+        (flicker floor included) [1]; NaN to use the model's.  The filter's q2 is an effective
+        level for the sampling interval and can understate a flicker floor far beyond it.
     initial_state : ndarray (3,), optional
         (phase [s] vs the first epoch's reference, frequency [1], drift [1/s]) at the first
         epoch, from the start-up estimation; None to start from the first measurement.
@@ -81,6 +85,7 @@ class ClockSetup:
     monitor: bool = False
     frequency_prior: float = 1e-11
     drift_prior_per_s: float = 1e-20
+    frame_hvar: float = math.nan
     initial_state: np.ndarray | None = None
     initial_cov: np.ndarray | None = None
 
@@ -145,6 +150,8 @@ class TimeScaleEngine:
         self.noise = [s.noise for s in self.setups]
         self.q_si = np.zeros((n, 3))
         self.r_si = np.zeros(n)
+        #: measured long-term Hadamard variance at the frame interval (NaN: from the model)
+        self.frame_hvar = np.array([s.frame_hvar for s in setups], dtype=float)
         for i, s in enumerate(self.setups):
             self._set_noise(i, s.noise)
         self.status = np.where(self.monitor, MONITOR, ABSENT).astype(np.int8)
@@ -220,6 +227,7 @@ class TimeScaleEngine:
         # Hadamard variance of each clock's model at the frame interval (primer c.3)
         hvar = (10.0 * self.r_si / (3.0 * tau * tau) + q[:, 0] / tau + q[:, 1] * tau / 6.0
                 + 11.0 * q[:, 2] * tau ** 3 / 120.0)
+        hvar = np.where(np.isfinite(self.frame_hvar), np.maximum(self.frame_hvar, hvar), hvar)
         v = relative_cap_weights(np.where(eligible, hvar, np.inf), eligible, self.cfg.cap(), 0)
         self.frame_weights = v
         shift = self.filter.project(v)
@@ -575,13 +583,12 @@ class TimeScaleEngine:
         name = self.clocks[i]
         self.events.append(Event(ep.start_mjd, name, outcome, a1, l1, self.mjd, s1))
         if outcome == "phase_step":
-            self.filter.correct(i, np.array([a1, 0.0, 0.0]), np.array([s1 * s1, 0.0, 0.0]))
+            self._correct(i, np.array([a1, 0.0, 0.0]), np.array([s1 * s1, 0.0, 0.0]))
             self._exclude(i, self.t)
         elif outcome == "frequency_step":
             span = dts[-1] + ep.onset_offset_s
-            self.filter.correct(i, np.array([a1 * span, a1, 0.0]),
-                                np.array([(s1 * span) ** 2, s1 * s1, 0.0]))
-            self._discount_from_frame(i, a1, 0.0, span)
+            self._correct(i, np.array([a1 * span, a1, 0.0]),
+                          np.array([(s1 * span) ** 2, s1 * s1, 0.0]))
             self._exclude(i, self.t, relearn=True)
         self._reset_slow(i)
         return outcome
@@ -590,29 +597,26 @@ class TimeScaleEngine:
     def _slow_change(self, i, kind, onset_mjd, size, unc, stat, correction) -> None:
         """A windowed-GLR alarm: absorb the detected jump into the clock's state."""
         rel = np.abs(correction / size) if size != 0 else np.zeros(3)
-        self.filter.correct(i, correction, (rel * unc) ** 2 + (0.25 * correction) ** 2)
-        age = (self.mjd - onset_mjd) * SECONDS_PER_DAY
-        if kind == "frequency_step":
-            self._discount_from_frame(i, size, 0.0, age)
-        else:
-            self._discount_from_frame(i, size * age, size, age)
+        self._correct(i, correction, (rel * unc) ** 2 + (0.25 * correction) ** 2)
         self.events.append(Event(onset_mjd, self.clocks[i], kind, size, stat, self.mjd, unc))
         self._reset_slow(i)
         self._exclude(i, self.t, relearn=True)
 
-    def _discount_from_frame(self, i: int, dy: float, dd: float, age_s: float) -> None:
-        """Keep a member's detected jump out of the scale's frequency and drift.
+    def _correct(self, i: int, delta: np.ndarray, inflate: np.ndarray) -> None:
+        """Absorb a detected jump into clock i's state without moving the scale.
 
-        The frame follows the v-weighted mean of the clocks' true frequencies, which a jump of
-        clock i moves by v_i times the jump; the scale's frequency is the frame's minus
-        ``frame_frequency``, so adding v_i dy (and v_i dd to ``frame_drift``) leaves the scale
-        as if clock i had not jumped.  What the scale followed before the detection stays.
+        The correction moves the v-weighted mean of the estimates by v_i times the correction;
+        re-projecting at once and booking the move in ``frame_frequency``/``frame_drift``
+        keeps the scale where it was.  (Booking the whole estimated jump instead would keep a
+        true jump out of the scale entirely, but would turn every false alarm of a frame member
+        into a lasting frequency step of the scale: measured in the benchmark.)  What the
+        scale followed of the jump before its detection stays.
         """
-        v = float(self.frame_weights[i])
-        if v > 0:
-            self.frame_frequency += v * dy
-            self.frame_drift += v * dd
-        del age_s
+        self.filter.correct(i, delta, inflate)
+        shift = self.filter.project(self.frame_weights)
+        self.frame_frequency += shift[1]
+        self.frame_drift += shift[2]
+        self.scale_minus_frame -= shift[0]
 
     # -------------------------------------------------------------------- standings
     def _exclude(self, i: int, t_s: float, relearn: bool = False) -> None:
@@ -705,6 +709,7 @@ class TimeScaleEngine:
             nz = self.noise[i]
             self._set_noise(i, ClockNoise(nz.q1_s * f, nz.q2_per_s * f, nz.q3_per_s3 * f,
                                           nz.r_s2))
+            self.frame_hvar[i] *= f
             self.z2_mean[i] /= f
             changed = True
         if changed:
@@ -713,7 +718,8 @@ class TimeScaleEngine:
     # ------------------------------------------------------------------------- persistence
     _SCALARS = ("epoch", "t", "mjd", "_t_prev", "_mjd_prev", "frame_frequency", "frame_drift",
                 "scale_minus_frame", "next_tracking_t", "_weights_due")
-    _ARRAYS = ("status", "status_since", "exclusion_days", "last_seen", "last_update_t",
+    _ARRAYS = ("frame_hvar", "status", "status_since", "exclusion_days", "last_seen",
+               "last_update_t",
                "prev_offset", "prev_clean", "prev_freq", "prev_drift", "weights",
                "frame_weights", "var_pred", "family", "z2_mean", "z2_count")
 
@@ -784,6 +790,7 @@ class TimeScaleEngine:
                             ("drift_prior", [s.drift_prior_per_s for s in new])):
             state[key] = np.concatenate([state[key], np.array(values, dtype=state[key].dtype)])
         fills = {"status": np.array([MONITOR if s.monitor else ABSENT for s in new], np.int8),
+                 "frame_hvar": np.array([s.frame_hvar for s in new], dtype=float),
                  "last_seen": -np.inf, "prev_offset": np.nan, "var_pred": np.nan,
                  "last_update_t": np.nan, "z2_mean": 1.0}
         for name in self._ARRAYS:
