@@ -4,19 +4,64 @@ Forms an ensemble ("paper") time scale from clock comparison measurements with a
 and stability-based weights, detects anomalies, computes steering corrections for a physical
 output, assesses each clock, and keeps everything in one self-describing HDF5 archive.
 
-Public names by task (all SI units: seconds, dimensionless fractional frequency, 1/s drift):
+Public names by task (SI units throughout: seconds, dimensionless fractional frequency, drift
+per second; the archive stores drift per day, as its ``units`` attributes say):
 
-Clock model
-    ClockNoise, transition_matrix, process_noise
-
+Run the whole job
+    run(input, output=None, config=None, ...) -> RunResult  (pandas frames via .frame(name))
+    append(input, archive, config=None, ...) -> RunResult   (continue an archive)
+Measurements
+    read_measurements(path, reference=None) -> Measurements
 Archive
-    open_archive (read an archive: DataFrames of offset, frequency, drift, weight, state;
+    open_archive(path) -> Archive  (DataFrames of offset, frequency, drift, weight, state;
     events, steering, provenance; units; saved engine state)
+Configuration
+    load_config(path) -> Config, default_config()
+Stability statistics
+    deviation(statistic, values, tau0_s, m), stability_table(values, tau0_s, statistic, ...)
+Clock model and simulation
+    ClockNoise, transition_matrix, process_noise, PRESETS, simulate_scenario, Scenario,
+    lab_scenario  (the subpackage ensemble.simulate holds the simulator itself)
+
+Names load on first use, so ``import ensemble`` stays fast.
 """
 
 __version__ = "0.1.0"
 
-from .archive import open_archive  # noqa: E402  (h5py is imported on first use)
-from .model import ClockNoise, process_noise, transition_matrix  # noqa: E402
+_LAZY = {
+    "run": ("ensemble.api", "run"),
+    "append": ("ensemble.api", "append"),
+    "RunResult": ("ensemble.pipeline", "RunResult"),
+    "read_measurements": ("ensemble.io.csvread", "read_measurements"),
+    "Measurements": ("ensemble.io.measurements", "Measurements"),
+    "open_archive": ("ensemble.archive", "open_archive"),
+    "load_config": ("ensemble.config", "load_config"),
+    "default_config": ("ensemble.config", "default_config"),
+    "deviation": ("ensemble.stability", "deviation"),
+    "stability_table": ("ensemble.stability", "stability_table"),
+    "ClockNoise": ("ensemble.model", "ClockNoise"),
+    "transition_matrix": ("ensemble.model", "transition_matrix"),
+    "process_noise": ("ensemble.model", "process_noise"),
+    "PRESETS": ("ensemble.model.presets", "PRESETS"),
+    "simulate_scenario": ("ensemble.simulate", "simulate"),
+    "Scenario": ("ensemble.simulate", "Scenario"),
+    "lab_scenario": ("ensemble.simulate", "lab_scenario"),
+}
 
-__all__ = ["__version__", "ClockNoise", "process_noise", "transition_matrix", "open_archive"]
+__all__ = ["__version__", *_LAZY]
+
+
+def __getattr__(name):
+    """Load a public name on first use (PEP 562)."""
+    if name in _LAZY:
+        import importlib
+
+        module, attr = _LAZY[name]
+        value = getattr(importlib.import_module(module), attr)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'ensemble' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(__all__)

@@ -21,7 +21,7 @@ from . import __version__
 from .errors import EnsembleError
 
 #: Command modules in the order ``--help`` lists them.
-COMMANDS = ("run", "stability", "simulate", "steer", "inspect")
+COMMANDS = ("run", "stability", "simulate", "steer", "inspect", "config")
 
 log = logging.getLogger("ensemble")
 

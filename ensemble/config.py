@@ -148,3 +148,36 @@ def replace_section(config: Config, name: str, **changes) -> Config:
     sections = dict(config.sections)
     sections[name] = dataclasses.replace(sections[name], **changes)
     return Config(sections, dict(config.clocks), config.source)
+
+
+def documented_defaults() -> str:
+    """The default configuration as TOML text, every key with its unit, allowed values and
+    meaning in a comment (``ensemble config`` prints it; configs/default.toml is this text)."""
+    from .settings import describe_section
+
+    import tomli_w
+
+    lines = ["# ensemble: the default configuration, every key at its default value.",
+             "# Copy what you want to change; unknown keys are errors.  Units as written.", ""]
+    for name, cls in _section_classes().items():
+        lines.append(f"[{name}]")
+        doc = (cls.__doc__ or "").strip().splitlines()[0]
+        doc = re.sub(r":\w+:`([^`]*)`", r"\1", doc).replace("``", "")
+        lines.insert(len(lines) - 1, f"# {doc}")
+        for key, default, unit, allowed, text in describe_section(cls):
+            if isinstance(default, float) and math.isnan(default):
+                continue
+            lines.append(f"# {text} [{unit or '-'}; {allowed}]")
+            value = tomli_w.dumps({key: list(default) if isinstance(default, tuple)
+                                   else default}).strip()
+            lines.append(value)
+        lines.append("")
+    lines.append("# Per-clock tables (one per clock; all keys optional; noise levels absent = "
+                 "estimated from the data):")
+    lines.append("# [clocks.H1]")
+    for key, default, unit, allowed, text in describe_section(ClockSettings):
+        shown = "(estimated)" if isinstance(default, float) and math.isnan(default) else \
+            tomli_w.dumps({key: default}).strip()
+        lines.append(f"# {key}: {text} [{unit or '-'}; {allowed}]; default {shown}")
+    lines.append("")
+    return "\n".join(lines)

@@ -60,6 +60,11 @@ class RunResult:
     archive: str | None = None
     final_weight: np.ndarray = field(default_factory=lambda: np.zeros(0))
     final_state: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int8))
+    engine: TimeScaleEngine | None = None
+    steering_clock: str | None = None
+    steering_state: dict | None = None
+    measurements: Measurements | None = None
+    reformed: bool = False
 
     def frame(self, name: str):
         """One (T, N) array as a pandas DataFrame indexed by MJD with clock columns."""
@@ -85,9 +90,12 @@ class RunResult:
         return pd.DataFrame(self.steering)
 
 
-def _prepare_roles(meas: Measurements, cfg: Config) -> dict:
-    """Per-clock settings, with the measured steered output forced to the monitor role."""
-    clocks = {name: cfg.clock(name) for name in meas.clocks}
+def _prepare_roles(meas: Measurements, cfg: Config, known=()) -> dict:
+    """Per-clock settings, with the measured steered output forced to the monitor role.
+
+    ``known``: further clock names that exist (an archive's, when it is continued).
+    """
+    clocks = {name: cfg.clock(name) for name in (*meas.clocks, *known)}
     for name in cfg.clocks:
         if name not in clocks:
             raise ConfigError(f"clock '{name}' does not appear in the measurements "
@@ -107,36 +115,120 @@ def _prepare_roles(meas: Measurements, cfg: Config) -> dict:
     return clocks
 
 
+class _OutputTracker:
+    """Phase and frequency of a measured steered output relative to the scale.
+
+    The output is a monitor channel (never in the ensemble): a two-state Kalman filter follows
+    its offset from the scale, with the commanded frequency changes as known inputs
+    (x_{k+1} = x_k + (y_k + u) dt, y_{k+1} = y_k + u), the channel's noise levels as process
+    noise and its white PM as measurement noise.
+    """
+
+    def __init__(self, noise, x=None, p=None, u: float = 0.0):
+        self.noise = noise
+        self.x = None if x is None else np.array(x, dtype=float)
+        self.p = None if p is None else np.array(p, dtype=float)
+        self.u = float(u)
+
+    def step(self, dt: float, offset: float):
+        from .model.clockmodel import process_noise, transition_matrix
+
+        if self.x is None:
+            if not np.isfinite(offset):
+                return (math.nan, math.nan), None
+            self.x = np.array([offset, 0.0])
+            self.p = np.diag([self.noise.r_s2, 1e-22])
+            return tuple(self.x), self.p.copy()
+        if dt > 0:
+            phi = transition_matrix(dt, 2)
+            self.x = phi @ self.x + np.array([dt, 1.0]) * self.u
+            self.p = phi @ self.p @ phi.T + process_noise(self.noise, dt, 2)
+        if np.isfinite(offset):
+            s = self.p[0, 0] + self.noise.r_s2
+            k = self.p[:, 0] / s
+            self.x = self.x + k * (offset - self.x[0])
+            i_kh = np.eye(2) - np.outer(k, [1.0, 0.0])
+            self.p = i_kh @ self.p @ i_kh.T + np.outer(k, k) * self.noise.r_s2
+        return tuple(self.x), self.p.copy()
+
+    def state_dict(self) -> dict:
+        return {"x": None if self.x is None else self.x.tolist(),
+                "p": None if self.p is None else self.p.tolist(), "u": self.u}
+
+
 class _Steering:
     """The steering controller fed from the engine's estimates each epoch."""
 
-    def __init__(self, cfg: Config, meas: Measurements, engine: TimeScaleEngine):
+    def __init__(self, settings, clock: str, index: int, engine: TimeScaleEngine,
+                 controller=None, last_t: float | None = None, tracker: dict | None = None):
         from .steering import SteeringController
 
-        self.settings = cfg.steering
-        first_ref = meas.clocks[int(meas.reference[0])]
-        name = self.settings.steered_clock(first_ref)
-        self.index = meas.clocks.index(name)
-        self.clock = name
+        self.settings = settings
+        self.clock = clock
+        self.index = index
         self.engine = engine
-        self.controller = SteeringController(self.settings, noise=engine.noise[self.index])
+        self.controller = controller if controller is not None else SteeringController(
+            settings, noise=engine.noise[index])
         self.records = []
-        self.last_t = None
+        self.last_t = last_t
+        self.tracker = None
+        if settings.output == "measured":
+            t = tracker or {}
+            self.tracker = _OutputTracker(engine.noise[index], t.get("x"), t.get("p"),
+                                          t.get("u", 0.0))
+
+    @classmethod
+    def start(cls, cfg: Config, meas: Measurements, engine: TimeScaleEngine) -> "_Steering":
+        first_ref = meas.clocks[int(meas.reference[0])]
+        name = cfg.steering.steered_clock(first_ref)
+        return cls(cfg.steering, name, meas.clocks.index(name), engine)
+
+    @classmethod
+    def resume(cls, cfg: Config, state: dict, engine: TimeScaleEngine) -> "_Steering":
+        from .steering import SteeringController
+
+        name = state["clock"]
+        index = engine.clocks.index(name)
+        controller = SteeringController.from_state(state["controller"], settings=cfg.steering,
+                                                   noise=engine.noise[index])
+        return cls(cfg.steering, name, index, engine, controller, float(state["last_t"]),
+                   state.get("tracker"))
+
+    def state_dict(self) -> dict:
+        state = {"clock": self.clock, "last_t": self.last_t,
+                 "controller": self.controller.state_dict()}
+        if self.tracker is not None:
+            state["tracker"] = self.tracker.state_dict()
+        return state
 
     def step(self, t_s: float, mjd: float, out: dict) -> None:
         i = self.index
-        state = (out["offset"][i], out["frequency"][i], out["drift"][i])
-        cov = self.engine.filter.cov_si(i) if self.engine.filter.active[i] else None
         dt = 0.0 if self.last_t is None else t_s - self.last_t
         self.last_t = t_s
-        self.records.append(self.controller.step(mjd, dt, state, cov,
-                                                 noise=self.engine.noise[i]))
+        if self.tracker is not None:
+            state, cov = self.tracker.step(dt, out["offset"][i])
+        else:
+            state = (out["offset"][i], out["frequency"][i], out["drift"][i])
+            cov = self.engine.filter.cov_si(i) if self.engine.filter.active[i] else None
+        record = self.controller.step(mjd, dt, state, cov, noise=self.engine.noise[i])
+        if self.tracker is not None:
+            self.tracker.u = record.frequency_correction
+        self.records.append(record)
 
     def take(self):
         from .steering.output import records_to_columns
 
         records, self.records = self.records, []
         return records_to_columns(records) if records else None
+
+
+def _start_engine(meas: Measurements, cfg: Config):
+    """Start-up estimation and a fresh engine for ``meas``."""
+    clocks_cfg = _prepare_roles(meas, cfg)
+    setups, report = build_setups(meas.phase_s, meas.elapsed_s, meas.reference, meas.tau0_s,
+                                  meas.clocks, clocks_cfg, cfg.ensemble)
+    engine = TimeScaleEngine(meas.clocks, meas.tau0_s, setups, cfg.ensemble, cfg.detection)
+    return engine, report
 
 
 def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
@@ -164,12 +256,33 @@ def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
     RunResult
     """
     cfg = cfg if cfg is not None else load_config(None)
-    clocks_cfg = _prepare_roles(meas, cfg)
-    setups, report = build_setups(meas.phase_s, meas.elapsed_s, meas.reference, meas.tau0_s,
-                                  meas.clocks, clocks_cfg, cfg.ensemble)
-    engine = TimeScaleEngine(meas.clocks, meas.tau0_s, setups, cfg.ensemble, cfg.detection)
-    steering = _Steering(cfg, meas, engine) if steer and "steering" in cfg.sections else None
-    t_n, n = meas.n_epochs, meas.n_clocks
+    engine, report = _start_engine(meas, cfg)
+    steering = _Steering.start(cfg, meas, engine) if steer and "steering" in cfg.sections \
+        else None
+    return _run_epochs(engine, steering, meas, 0.0, report, sink=sink, keep=keep,
+                       progress=progress)
+
+
+def _run_epochs(engine: TimeScaleEngine, steering, meas: Measurements, t_offset_s: float,
+                report, *, sink=None, keep: bool = True, progress: bool = False,
+                columns: np.ndarray | None = None) -> RunResult:
+    """Feed every epoch of ``meas`` to the engine (and the steering), blocks to ``sink``.
+
+    ``columns`` maps the measurement columns to the engine's (for a continued archive whose
+    column order differs); the engine's time is ``t_offset_s + meas.elapsed_s``.
+    """
+    from threadpoolctl import threadpool_limits
+
+    # The filter's matrices are small (3N x 3N): one BLAS thread is as fast on a quiet machine
+    # and far faster on a busy one (measured: benchmarks/bench_engine.py).
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _run_epochs_inner(engine, steering, meas, t_offset_s, report, sink=sink,
+                                 keep=keep, progress=progress, columns=columns)
+
+
+def _run_epochs_inner(engine, steering, meas, t_offset_s, report, *, sink, keep, progress,
+                      columns) -> RunResult:
+    t_n, n = meas.n_epochs, engine.n
     keys = ("offset", "frequency", "drift", "weight", "state", "zscore")
     kept = {k: np.empty((t_n, n), dtype=np.int8 if k == "state" else float) for k in keys} \
         if keep else None
@@ -179,17 +292,25 @@ def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
     steer_parts = []
     bar = _progress(t_n, progress)
     out = None
+    z = np.full(n, np.nan)
+    ref_map = np.arange(meas.n_clocks) if columns is None else columns
     for k in range(t_n):
-        out = engine.step(float(meas.elapsed_s[k]), float(meas.mjd[k]), meas.phase_s[k],
-                          int(meas.reference[k]))
+        if columns is None:
+            z = meas.phase_s[k]
+        else:
+            z[:] = np.nan
+            z[columns] = meas.phase_s[k]
+        t = t_offset_s + float(meas.elapsed_s[k])
+        ref = int(ref_map[int(meas.reference[k])])
+        out = engine.step(t, float(meas.mjd[k]), z, ref)
         if steering is not None:
-            steering.step(float(meas.elapsed_s[k]), float(meas.mjd[k]), out)
+            steering.step(t, float(meas.mjd[k]), out)
         if keep:
             for key in keys:
                 kept[key][k] = out[key]
             sigma[k] = out["scale_sigma"]
         if sink is not None:
-            _fill(block, b, meas, k, out)
+            _fill(block, b, float(meas.mjd[k]), z, ref, t, out)
             b += 1
             if b == BLOCK_EPOCHS:
                 cols = steering.take() if steering else None
@@ -207,17 +328,18 @@ def form_time_scale(meas: Measurements, cfg: Config | None = None, *, sink=None,
         sink({key: value[:b] for key, value in block.items()}, cols)
     elif steering is not None:
         steer_parts.append(steering.take())
-    steer_cols = _concat(steer_parts)
-    result = RunResult(meas.clocks, meas.mjd.copy(),
+    result = RunResult(engine.clocks, meas.mjd.copy(),
                        kept["offset"] if keep else None, kept["frequency"] if keep else None,
                        kept["drift"] if keep else None, kept["weight"] if keep else None,
                        kept["state"] if keep else None, kept["zscore"] if keep else None,
-                       sigma, list(engine.events), steer_cols, report)
+                       sigma, list(engine.events), _concat(steer_parts), report)
     if out is not None:
         result.final_weight = out["weight"].copy()
         result.final_state = out["state"].copy()
     result.engine = engine
     result.steering_clock = steering.clock if steering is not None else None
+    result.steering_state = steering.state_dict() if steering is not None else None
+    result.measurements = meas
     return result
 
 
@@ -269,11 +391,12 @@ def _new_block(size: int, n: int) -> dict:
     return block
 
 
-def _fill(block: dict, b: int, meas: Measurements, k: int, out: dict) -> None:
-    block["mjd"][b] = meas.mjd[k]
-    block["measurements/phase"][b] = meas.phase_s[k]
-    block["measurements/reference"][b] = meas.reference[k]
-    block["measurements/elapsed"][b] = meas.elapsed_s[k]
+def _fill(block: dict, b: int, mjd: float, z: np.ndarray, ref: int, t: float,
+          out: dict) -> None:
+    block["mjd"][b] = mjd
+    block["measurements/phase"][b] = z
+    block["measurements/reference"][b] = ref
+    block["measurements/elapsed"][b] = t
     for key, name in _BLOCK.items():
         block[key][b] = out[name]
 
@@ -337,6 +460,51 @@ def _steering_fields():
                  if name not in CONTRACT_COLUMNS)
 
 
+def _writer_options() -> dict:
+    return {"extra_epoch_datasets": _extra_datasets(), "extra_event_fields": _event_fields(),
+            "steering_fields": _steering_fields()}
+
+
+def _state_for_archive(result: RunResult) -> dict:
+    state = {"engine": result.engine.state_dict()}
+    if result.steering_state is not None:
+        state["steering"] = result.steering_state
+    return state
+
+
+def _finish(writer, result: RunResult, input_name: str) -> None:
+    if result.events:
+        writer.append_events([dataclasses.asdict(e) for e in result.events])
+    writer.write_state(_state_for_archive(result))
+    writer.add_run_record(input_name)
+
+
+def _create(meas: Measurements, cfg: Config, output: pathlib.Path, *, overwrite: bool,
+            input_name: str, previous_runs=None, progress: bool = False,
+            keep: bool = False) -> RunResult:
+    """Form the scale over ``meas`` and write a new archive (atomically)."""
+    from .archive import ArchiveWriter
+
+    _prepare_roles(meas, cfg)        # configuration errors before anything is written
+    attrs = {"config_toml": cfg.to_toml(), "input_sha256": meas.sha256}
+    writer = ArchiveWriter.create(output, meas.clocks, attrs, overwrite=overwrite,
+                                  **_writer_options())
+    with writer:
+        def sink(block, steer_cols):
+            writer.append_epochs(block)
+            if steer_cols:
+                writer.append_steering(steer_cols)
+
+        result = form_time_scale(meas, cfg, sink=sink, keep=keep, progress=progress)
+        writer.write_group("/startup", _startup_group(result.startup),
+                           units=_STARTUP_UNITS, descriptions=_STARTUP_DESCRIPTIONS)
+        if previous_runs is not None and len(previous_runs):
+            writer.add_previous_runs(previous_runs)
+        _finish(writer, result, input_name)
+    result.archive = str(output)
+    return result
+
+
 def run_to_archive(input_path, output, *, config=None, reference: str | None = None,
                    overwrite: bool = False, progress: bool = False,
                    keep: bool = False) -> RunResult:
@@ -363,36 +531,125 @@ def run_to_archive(input_path, output, *, config=None, reference: str | None = N
     -------
     RunResult
     """
-    from .archive import ArchiveWriter
+    from .errors import InputError
     from .io.csvread import read_measurements
 
     cfg = config if isinstance(config, Config) else load_config(config)
     meas = read_measurements(input_path, reference=reference or cfg.input.reference or None)
     output = pathlib.Path(output)
     if output.exists() and not overwrite:
-        from .errors import InputError
         raise InputError("the archive exists; continue it with --append, or replace it with "
                          "--overwrite", path=str(output))
+    return _create(meas, cfg, output, overwrite=overwrite,
+                   input_name=os.path.basename(str(input_path)), progress=progress, keep=keep)
+
+
+def append_to_archive(input_path, archive, *, config=None, reference: str | None = None,
+                      progress: bool = False, keep: bool = False) -> RunResult:
+    """Continue an archive with new measurements (``ensemble run NEW.csv --append ARCHIVE``).
+
+    The saved engine and steering state are restored and the new epochs processed exactly as
+    one run over all the data would have (bit-identical when every clock already appeared in
+    the archive and the sampling interval is a whole number of seconds).  While the archive
+    covers less than the start-up stretch (``[ensemble].startup_days``), the start-up estimation
+    is not complete: the archive is then re-formed from its own measurements plus the new ones
+    (its earlier runs stay in ``/provenance``).  The new epochs must come after the archive's
+    last one on its sampling grid; the archive is replaced atomically.
+
+    Parameters
+    ----------
+    input_path : path-like
+        The new measurements (long or wide CSV; a single epoch is enough).
+    archive : path-like
+        The archive to continue.
+    config : Config, path-like or None
+        Configuration; default the archive's own (``config_toml``).
+    reference, progress, keep
+        As for :func:`run_to_archive`.
+    """
+    import tomllib
+
+    from . import open_archive
+    from .archive import ArchiveWriter
+    from .config import parse_config
+    from .errors import InputError
+    from .io.csvread import read_measurements
+
+    archive = pathlib.Path(archive)
+    with open_archive(archive) as arc:
+        state = arc.engine_state
+        clocks = tuple(arc.clocks)
+        last_mjd = float(arc.mjd[-1])
+        stored_config = arc.attrs.get("config_toml", "")
+        previous_runs = arc.provenance.to_dict("records")
+        old_phase = arc.array("/measurements/phase") if "engine" in state else None
+        old_ref = arc.array("/measurements/reference") if "engine" in state else None
+        old_elapsed = arc.array("/measurements/elapsed") if "engine" in state else None
+        old_mjd = np.asarray(arc.mjd, dtype=float)
+    if "engine" not in state:
+        raise InputError("the archive holds no saved engine state; it cannot be continued "
+                         "(write a new archive with ensemble run)", path=str(archive))
+    if isinstance(config, Config):
+        cfg = config
+    elif config is not None:
+        cfg = load_config(config)
+    else:
+        cfg = parse_config(tomllib.loads(stored_config), f"{archive} (config_toml)")
+    tau0_s = float(state["engine"]["tau0_s"])
+    meas = read_measurements(input_path, reference=reference or cfg.input.reference or None,
+                             continues=(last_mjd, tau0_s))
+    t_last = float(state["engine"]["t"])
+    input_name = os.path.basename(str(input_path))
+    _prepare_roles(meas, cfg, clocks)  # configuration errors before anything is written
+    if t_last < cfg.ensemble.startup_days * 86400.0:
+        combined = _combine(clocks, old_mjd, old_phase, old_ref, old_elapsed, meas, tau0_s)
+        result = _create(combined, cfg, archive, overwrite=True, input_name=input_name,
+                         previous_runs=previous_runs, progress=progress, keep=keep)
+        result.reformed = True
+        return result
+    engine = TimeScaleEngine.from_state(state["engine"], cfg.ensemble, cfg.detection)
+    new_names = [c for c in meas.clocks if c not in engine.clocks]
+    if new_names:
+        clocks_cfg = _prepare_roles(meas, cfg)
+        setups, _ = build_setups(meas.phase_s, meas.elapsed_s, meas.reference, meas.tau0_s,
+                                 meas.clocks, clocks_cfg, cfg.ensemble)
+        engine.add_clocks({c: setups[meas.clocks.index(c)] for c in new_names})
+    columns = np.array([engine.clocks.index(c) for c in meas.clocks])
+    steering = None
+    if "steering" in state and "steering" in cfg.sections:
+        steering = _Steering.resume(cfg, state["steering"], engine)
     attrs = {"config_toml": cfg.to_toml(), "input_sha256": meas.sha256}
-    writer = ArchiveWriter.create(output, meas.clocks, attrs,
-                                  extra_epoch_datasets=_extra_datasets(),
-                                  extra_event_fields=_event_fields(),
-                                  steering_fields=_steering_fields(), overwrite=overwrite)
+    writer = ArchiveWriter.open_for_append(archive, attrs,
+                                           extra_epoch_datasets=_extra_datasets())
     with writer:
+        if new_names:
+            writer.add_clocks(new_names)
+
         def sink(block, steer_cols):
             writer.append_epochs(block)
             if steer_cols:
                 writer.append_steering(steer_cols)
 
-        result = form_time_scale(meas, cfg, sink=sink, keep=keep, progress=progress)
-        if result.events:
-            writer.append_events([dataclasses.asdict(e) for e in result.events])
-        writer.write_group("/startup", _startup_group(result.startup),
-                           units=_STARTUP_UNITS, descriptions=_STARTUP_DESCRIPTIONS)
-        writer.add_run_record(os.path.basename(str(input_path)))
-    result.archive = str(output)
-    result.measurements = meas
+        result = _run_epochs(engine, steering, meas, t_last, None, sink=sink, keep=keep,
+                             progress=progress, columns=columns)
+        _finish(writer, result, input_name)
+    result.archive = str(archive)
+    result.reformed = False
     return result
+
+
+def _combine(clocks, mjd, phase, ref, elapsed, new: Measurements, tau0_s: float) -> Measurements:
+    """The archive's measurements followed by the new ones, clock columns in name order."""
+    names = tuple(sorted(set(clocks) | set(new.clocks)))
+    n_old, n_new = mjd.size, new.n_epochs
+    out = np.full((n_old + n_new, len(names)), np.nan)
+    out[:n_old, [names.index(c) for c in clocks]] = phase
+    out[n_old:, [names.index(c) for c in new.clocks]] = new.phase_s
+    refs = np.concatenate([[names.index(clocks[int(r)]) for r in ref],
+                           [names.index(new.clocks[int(r)]) for r in new.reference]])
+    times = np.concatenate([elapsed, elapsed[-1] + new.elapsed_s])
+    return Measurements(names, np.concatenate([mjd, new.mjd]), times, out,
+                        refs.astype(np.int64), tau0_s, new.source, new.sha256)
 
 
 _STARTUP_UNITS = {"q1": "s", "q2": "1/s", "q3": "1/s^3", "r": "s^2", "source": "none"}

@@ -69,3 +69,47 @@ def test_clock_tables_and_ints_for_floats():
     written = tomllib.loads(cfg.to_toml())["clocks"]["H1"]
     assert written["q1_s"] == 1e-26
     assert "q2_per_s" not in written  # NaN ("estimate") keys are not written
+
+
+def test_shipped_default_config_is_current():
+    # Regression: configs/default.toml is the output of `ensemble config`.
+    from conftest import CONFIG_DIR
+    from ensemble.config import documented_defaults
+    assert (CONFIG_DIR / "default.toml").read_text() == documented_defaults()
+    cfg = load_config(CONFIG_DIR / "default.toml")
+    assert cfg.to_toml() == default_config().to_toml()
+
+
+def test_shipped_run_configs_are_valid():
+    from conftest import CONFIG_DIR
+    for name in ("demo.toml", "steering_examples.toml"):
+        load_config(CONFIG_DIR / name)
+
+
+def _corpus():
+    from conftest import DATA_DIR
+    folder = DATA_DIR / "malformed_configs"
+    rows = [line.split("|") for line in (folder / "README.md").read_text().splitlines()
+            if line.startswith("| `")]
+    return [(folder / r[1].strip().strip("`"), r[2].strip().strip("`")) for r in rows]
+
+
+@pytest.mark.parametrize("path, fragment", _corpus(), ids=lambda v: getattr(v, "name", ""))
+def test_malformed_configs_exit_2_and_leave_the_archive(tmp_path, capsys, path, fragment):
+    from conftest import DATA_DIR
+    from ensemble import cli
+    archive = tmp_path / "lab.h5"
+    archive.write_bytes(b"an existing archive")
+    code = cli.main(["run", str(DATA_DIR / "example_long.csv"), "-o", str(archive),
+                     "--config", str(path), "--overwrite"])
+    out, err = capsys.readouterr()
+    assert code == 2
+    lines = err.splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: ") and "Traceback" not in err
+    assert fragment in lines[0]
+    assert archive.read_bytes() == b"an existing archive"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["lab.h5"]
+
+
+def test_config_corpus_is_large_enough():
+    assert len(_corpus()) >= 30

@@ -149,6 +149,25 @@ class ContentWriting:
         self._run = {"input_name": input_name, "input_sha256": input_sha256,
                      "config_toml": config_toml, "time_utc": time_utc or utc_now()}
 
+    def add_previous_runs(self, rows) -> None:
+        """Carry over the ``/provenance`` rows of an archive this one replaces.
+
+        Used when an archive is re-formed from its own measurements plus new ones (while its
+        start-up stretch is still incomplete): the earlier runs stay on record, in order, before
+        this run's own row.
+
+        Parameters
+        ----------
+        rows : mapping of columns, or iterable of mappings
+            Rows as :attr:`ensemble.archive.Archive.provenance` gives them.
+        """
+        self._require_open()
+        spec, ds, _ = self._tables[schema.PROVENANCE.path]
+        data = rows_to_table(rows, spec, "add_previous_runs")
+        n = ds.shape[0]
+        ds.resize((n + len(data),))
+        ds[n:] = data
+
     def _write_run_record(self) -> None:
         run = self._run
         f = self._f

@@ -8,6 +8,7 @@ EXAMPLES = """examples:
   ensemble run demo_data/lab_demo.csv -o lab.h5
   ensemble run demo_data/lab_demo.csv -o lab.h5 --config configs/demo.toml --overwrite
   ensemble run wide.csv --reference H1 -o lab.h5
+  ensemble run today.csv --append lab.h5        (continue the archive with new epochs)
 
 exit codes: 0 success; 2 bad input or configuration (one line names the file, row and column,
 and nothing is written); 1 internal error.
@@ -22,9 +23,13 @@ def add_parser(sub, parents) -> None:
                                    "is never left half-written).",
                        epilog=EXAMPLES, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("input", metavar="INPUT", help="measurement CSV (long or wide form)")
-    p.add_argument("-o", "--output", metavar="ARCHIVE.h5", required=True,
-                   help="archive to write")
-    p.add_argument("--config", metavar="FILE.toml", help="configuration (defaults if omitted)")
+    target = p.add_mutually_exclusive_group(required=True)
+    target.add_argument("-o", "--output", metavar="ARCHIVE.h5", help="archive to write")
+    target.add_argument("--append", metavar="ARCHIVE.h5",
+                        help="continue this archive with the new epochs of INPUT (they must come "
+                             "after its last epoch); the archive is replaced atomically")
+    p.add_argument("--config", metavar="FILE.toml",
+                   help="configuration (defaults if omitted; with --append the archive's own)")
     p.add_argument("--reference", metavar="NAME",
                    help="reference clock of a wide-form file (its column is absent or zero)")
     p.add_argument("--overwrite", action="store_true",
@@ -38,13 +43,28 @@ def main(args: argparse.Namespace) -> int:
 
     from ..config import load_config
     from ..io.csvread import summarize
-    from ..pipeline import run_to_archive, summary_text
+    from ..pipeline import append_to_archive, run_to_archive, summary_text
     from ..steering.output import CAUTIONS, summarize as steering_summary
 
     log = logging.getLogger("ensemble")
-    cfg = load_config(args.config)
-    result = run_to_archive(args.input, args.output, config=cfg, reference=args.reference,
-                            overwrite=args.overwrite, progress=not args.quiet)
+    if args.append:
+        if args.overwrite:
+            from ..errors import InputError
+            raise InputError("--overwrite does not go with --append", path=args.append)
+        result = append_to_archive(args.input, args.append, config=args.config,
+                                   reference=args.reference, progress=not args.quiet)
+        cfg = load_config(args.config) if args.config else None
+        if cfg is None:
+            import tomllib
+
+            from ..config import parse_config
+            from .. import open_archive
+            with open_archive(args.append) as arc:
+                cfg = parse_config(tomllib.loads(arc.attrs["config_toml"]))
+    else:
+        cfg = load_config(args.config)
+        result = run_to_archive(args.input, args.output, config=cfg, reference=args.reference,
+                                overwrite=args.overwrite, progress=not args.quiet)
     if not args.quiet:
         print(summarize(result.measurements))
         print()
@@ -57,6 +77,11 @@ def main(args: argparse.Namespace) -> int:
             print("cautions:")
             for line in CAUTIONS:
                 print(f"  - {line}")
-    print(f"archive written: {result.archive}")
+    if args.append:
+        note = (" (re-formed from its measurements: its start-up stretch was not complete)"
+                if result.reformed else "")
+        print(f"archive continued: {result.archive}{note}")
+    else:
+        print(f"archive written: {result.archive}")
     log.debug("configuration: %s", args.config or "defaults")
     return 0

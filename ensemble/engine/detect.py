@@ -68,9 +68,13 @@ class SignatureGLR:
     ----------
     n_clocks : int
     window : int
-        Number of onsets kept (the last ``window`` epochs).
+        Number of onsets kept.
     threshold : float
         Alarm threshold on l.
+    stride : int
+        A new onset every ``stride`` epochs (so the onsets span ``window * stride`` epochs).
+    tests : sequence of bool, length 2
+        Which of :data:`SLOW_HYPOTHESES` (frequency step, drift change) are tested.
     """
 
     def __init__(self, n_clocks: int, window: int, threshold: float):
@@ -85,6 +89,7 @@ class SignatureGLR:
         self.onset_mjd = np.full(window, np.nan)
         self.live = np.zeros((n_clocks, window), dtype=bool)
         self.head = 0
+        self._allowed = None                     # (has_drift, allowed hypotheses) cache
 
     def step(self, t_prev: float, mjd_prev: float, dt: float, t_now: float,
              gain: np.ndarray, residual: np.ndarray, var: np.ndarray, valid: np.ndarray,
@@ -123,28 +128,30 @@ class SignatureGLR:
         self.C[:, :, j] = 0.0
         self.live[:, j] = True
         self.head = (j + 1) % self.window
-        # propagate the responses: F <- Phi(dt) F
         F = self.F
+        # propagate the responses: F <- Phi(dt) F
         F[..., 0] += dt * F[..., 1] + 0.5 * dt * dt * F[..., 2]
         F[..., 1] += dt * F[..., 2]
-        age = t_now - self.onset_t                              # (window,)
-        true0 = np.stack([age, 0.5 * age * age])                # (2, window) phase of Phi f
-        g_sig = true0[None] - F[..., 0]                         # (n, 2, window)
-        g_sig = np.where(np.isfinite(g_sig), g_sig, 0.0)
-        v = valid[:, None, None] & self.live[:, None, :]
-        v = v & np.array([True, True])[None, :, None]
-        v[:, 1, :] &= has_drift[:, None]
-        r = np.where(valid, residual, 0.0)[:, None, None]
-        w = np.where(valid, 1.0 / np.where(valid, var, 1.0), 0.0)[:, None, None]
-        self.d += np.where(v, g_sig * r * w, 0.0)
-        self.C += np.where(v, g_sig * g_sig * w, 0.0)
-        F += np.where(v[..., None], gain[:, None, None, :] * g_sig[..., None], 0.0)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            stat = np.where(self.C > 0, self.d * self.d / self.C, 0.0)
-        stat[:, 1, :] = np.where(has_drift[:, None], stat[:, 1, :], 0.0)
+        age = np.nan_to_num(t_now - self.onset_t)             # (window,), 0 if unused
+        if self._allowed is None or self._allowed[0] is not has_drift:
+            self._allowed = (has_drift, np.stack([np.ones(self.n), has_drift], axis=1))
+        # 1 where the clock's residual counts for that onset and hypothesis, else 0
+        use = (valid[:, None] & self.live)[:, None, :] * self._allowed[1][:, :, None]
+        g_sig = np.empty(self.d.shape)
+        np.subtract(age, F[:, 0, :, 0], out=g_sig[:, 0])
+        np.subtract(0.5 * age * age, F[:, 1, :, 0], out=g_sig[:, 1])
+        g_sig *= use
+        inv_var = np.divide(1.0, var, out=np.zeros(self.n), where=valid)
+        gw = g_sig * inv_var[:, None, None]
+        self.d += gw * np.where(valid, residual, 0.0)[:, None, None]
+        self.C += gw * g_sig
+        F += g_sig[..., None] * gain[:, None, None, :]
+        stat = np.divide(self.d * self.d, self.C, out=np.zeros(self.C.shape), where=self.C > 0)
+        hot = stat > self.threshold
+        if not hot.any():
+            return []
         alarms = []
-        hot = np.flatnonzero((stat > self.threshold).any(axis=(1, 2)))
-        for i in hot:
+        for i in np.flatnonzero(hot.any(axis=(1, 2))):
             h, slot = np.unravel_index(int(np.argmax(stat[i])), stat[i].shape)
             size = self.d[i, h, slot] / self.C[i, h, slot]
             unc = 1.0 / math.sqrt(self.C[i, h, slot])
@@ -172,6 +179,8 @@ class SignatureGLR:
             setattr(self, key, np.array(state[key], dtype=float))
         self.live = np.array(state["live"], dtype=bool)
         self.head = int(state["head"])
+        self.n = self.F.shape[0]
+        self._allowed = None
 
 
 def frozen_prediction_covariance(dt_s: np.ndarray, prior_cov: np.ndarray, q: np.ndarray,

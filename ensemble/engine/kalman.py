@@ -30,10 +30,13 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.linalg
+from scipy.linalg.lapack import dpotrf, dpotrs
 
 from ..units import NS_PER_S, SECONDS_PER_DAY, scale_diffusion
 
+#: Up to this many clocks the prediction and the projection use dense products (faster than
+#: strided row and column operations for small matrices).
+_DENSE_CLOCKS = 16
 #: Scaled-unit factors for (phase, frequency, drift): SI value * factor = scaled value.
 SCALE = np.array([NS_PER_S, NS_PER_S * SECONDS_PER_DAY, NS_PER_S * SECONDS_PER_DAY ** 2])
 
@@ -67,6 +70,8 @@ class EnsembleFilter:
         self.q = np.zeros((n_clocks, 3))
         #: white PM variance of each clock's channel, scaled units (ns^2)
         self.r = np.zeros(n_clocks)
+        self._q_cache: dict = {}
+        self._projector = None
 
     # ------------------------------------------------------------------ set-up and SI helpers
     def set_noise(self, i: int, q1_s: float, q2_per_s: float, q3_per_s3: float,
@@ -75,6 +80,7 @@ class EnsembleFilter:
         self.q[i] = [scale_diffusion(q1_s, 1), scale_diffusion(q2_per_s, 2),
                      scale_diffusion(q3_per_s3, 3)]
         self.r[i] = r_s2 * NS_PER_S ** 2
+        self._q_cache.clear()
 
     def activate(self, i: int, state_si: np.ndarray, cov_si: np.ndarray,
                  phase_link: int | None = None) -> None:
@@ -99,6 +105,7 @@ class EnsembleFilter:
         self.P[s, :] = 0.0
         self.P[:, s] = 0.0
         self.P[s, s] = np.asarray(cov_si, dtype=float) * np.outer(SCALE, SCALE)
+        self._q_cache.clear()
         if phase_link is not None:
             j = 3 * phase_link
             row = self.P[j, :].copy()
@@ -115,6 +122,7 @@ class EnsembleFilter:
         self.P[s, :] = 0.0
         self.P[:, s] = 0.0
         self.active[i] = False
+        self._q_cache.clear()
 
     def state_si(self, i: int) -> np.ndarray:
         """Clock i's (phase [s], frequency [1], drift [1/s]) in the filter's frame."""
@@ -132,8 +140,17 @@ class EnsembleFilter:
 
     # ------------------------------------------------------------------------------- predict
     def predict(self, dt_s: float) -> None:
-        """Propagate state and covariance over dt with the exact Phi and Q (primer c.2)."""
+        """Propagate state and covariance over dt with the exact Phi and Q (primer c.2).
+
+        Small ensembles use dense products with the whole-ensemble Phi and Q (cached per
+        interval); larger ones apply Phi by row and column operations, O(n^2).
+        """
         t = dt_s / SECONDS_PER_DAY
+        if self.n_clocks <= _DENSE_CLOCKS:
+            phi, q_full = self._dense_model(dt_s)
+            self.x = phi @ self.x
+            self.P = phi @ self.P @ phi.T + q_full
+            return
         h = 0.5 * t * t
         x3 = self.x.reshape(-1, 3)
         x3[:, 0] += t * x3[:, 1] + h * x3[:, 2]
@@ -145,18 +162,52 @@ class EnsembleFilter:
         p4[:, 1] += t * p4[:, 2]
         p4[:, :, :, 0] += t * p4[:, :, :, 1] + h * p4[:, :, :, 2]
         p4[:, :, :, 1] += t * p4[:, :, :, 2]
-        act = np.flatnonzero(self.active)
+        # Phi P Phi^T is symmetric up to round-off; the update and the projection that follow
+        # every prediction re-symmetrise P.
+        cached = self._q_cache.get(dt_s)
+        if cached is None:
+            act = np.flatnonzero(self.active)
+            cached = (act, _q_blocks(self.q[act], t))
+            if len(self._q_cache) > 32:
+                self._q_cache.clear()
+            self._q_cache[dt_s] = cached
+        act, blocks = cached
         if act.size:
-            p4[act, :, act, :] += _q_blocks(self.q[act], t)
-        self._symmetrize()
+            p4[act, :, act, :] += blocks
+
+    def _dense_model(self, dt_s: float):
+        key = ("dense", dt_s)
+        cached = self._q_cache.get(key)
+        if cached is None:
+            t = dt_s / SECONDS_PER_DAY
+            n = self.n_clocks
+            phi1 = np.array([[1.0, t, 0.5 * t * t], [0.0, 1.0, t], [0.0, 0.0, 1.0]])
+            phi = np.kron(np.eye(n), phi1)
+            q_full = np.zeros((3 * n, 3 * n))
+            act = np.flatnonzero(self.active)
+            q4 = q_full.reshape(n, 3, n, 3)
+            q4[act, :, act, :] = _q_blocks(self.q[act], t)
+            if len(self._q_cache) > 32:
+                self._q_cache.clear()
+            cached = self._q_cache[key] = (phi, q_full)
+        return cached
 
     # -------------------------------------------------------------------------------- update
     def innovation_covariance(self, clocks: np.ndarray, ref: int) -> np.ndarray:
         """S = H P H^T + R for the channels clock - ref of ``clocks`` (scaled units, ns^2)."""
-        px = 3 * np.asarray(clocks)
-        pr = 3 * ref
-        s = (self.P[np.ix_(px, px)] - self.P[px, pr][:, None] - self.P[pr, px][None, :]
-             + self.P[pr, pr])
+        clocks = np.asarray(clocks)
+        if self.n_clocks <= _DENSE_CLOCKS:
+            # S = T Pxx T^T with T the difference rows on the phase states
+            t = np.zeros((clocks.size, self.n_clocks))
+            t[np.arange(clocks.size), clocks] = 1.0
+            t[:, ref] -= 1.0
+            pxx = self.P[::3, ::3]
+            s = t @ pxx @ t.T
+        else:
+            px = 3 * clocks
+            pr = 3 * ref
+            s = (self.P[np.ix_(px, px)] - self.P[px, pr][:, None] - self.P[pr, px][None, :]
+                 + self.P[pr, pr])
         s[np.diag_indices_from(s)] += self.r[clocks]
         return s
 
@@ -181,7 +232,7 @@ class EnsembleFilter:
         return nu, self.innovation_covariance(clocks, ref)
 
     def update(self, z_s: np.ndarray, clocks: np.ndarray, ref: int,
-               chol: tuple | None = None) -> UpdateResult | None:
+               chol: np.ndarray | None = None, symmetrize: bool = True) -> UpdateResult | None:
         """Measurement update with the Joseph form (structured for difference rows).
 
         P+ = (I - K H) P (I - K H)^T + K R K^T, evaluated as A + (K R - A H^T) K^T with
@@ -191,8 +242,12 @@ class EnsembleFilter:
         ----------
         z_s, clocks, ref
             As for :meth:`innovations`.
-        chol : tuple, optional
-            ``scipy.linalg.cho_factor`` of S for exactly these channels, when the caller has it.
+        chol : ndarray, optional
+            Lower Cholesky factor of S (scaled units) for exactly these channels, when the caller
+            has it.
+        symmetrize : bool
+            Re-symmetrise P afterwards (a caller that projects next, which symmetrises, may skip
+            it).
         """
         clocks = np.asarray(clocks, dtype=int)
         if clocks.size == 0:
@@ -205,13 +260,17 @@ class EnsembleFilter:
             s = b[px, :] - b[pr, :]
             s = 0.5 * (s + s.T)
             s[np.diag_indices_from(s)] += self.r[clocks]
-            chol = scipy.linalg.cho_factor(s, lower=True, check_finite=False)
-        k = scipy.linalg.cho_solve(chol, b.T, check_finite=False).T      # K = P H^T S^-1
+            chol = cholesky(s)
+        k, info = dpotrs(chol, b.T, lower=1)                            # K^T = S^-1 H P
+        if info:
+            raise np.linalg.LinAlgError(f"Cholesky solve failed (info {info})")
+        k = k.T
         self.x += k @ nu
         a = self.P - k @ b.T                                            # (I - K H) P
         ah = a[:, px] - a[:, [pr]]                                       # A H^T
         self.P = a + (k * self.r[clocks] - ah) @ k.T
-        self._symmetrize()
+        if symmetrize:
+            self._symmetrize()
         return UpdateResult(clocks, nu, None, k)
 
     def relative_gains(self, result: UpdateResult, ref: int, v: np.ndarray) -> np.ndarray:
@@ -225,7 +284,7 @@ class EnsembleFilter:
         if result is None:
             return out
         k3 = result.gain.reshape(self.n_clocks, 3, -1)
-        rel = k3 - np.einsum("j,jam->am", v, k3)[None]
+        rel = k3 - (v @ result.gain.reshape(self.n_clocks, -1)).reshape(1, 3, -1)
         cols = np.arange(result.clocks.size)
         out[result.clocks] = rel[result.clocks, :, cols]
         out[ref] = -rel[ref].sum(axis=1)
@@ -247,17 +306,31 @@ class EnsembleFilter:
             The shift removed, i.e. the v-mean clock's (phase [s], frequency [1], drift [1/s])
             in the frame before the projection.
         """
-        act = np.flatnonzero(self.active)
-        w = np.asarray(v, dtype=float)[act]
         n = self.n_clocks
+        v = np.asarray(v, dtype=float) * self.active
+        if n <= _DENSE_CLOCKS:
+            x3 = self.x.reshape(n, 3)
+            shift = v @ x3
+            key = v.tobytes() + self.active.tobytes()
+            if self._projector is None or self._projector[0] != key:
+                a = np.eye(3 * n) - np.kron(np.outer(self.active, v), np.eye(3))   # I - U V^T
+                self._projector = (key, a)
+            a = self._projector[1]
+            self.x = a @ self.x
+            self.P = a @ self.P @ a.T
+            self._symmetrize()
+            return shift / SCALE
+        everyone = bool(self.active.all())
+        act = slice(None) if everyone else np.flatnonzero(self.active)
         x3 = self.x.reshape(n, 3)
-        shift = w @ x3[act]
+        shift = v @ x3
         x3[act] -= shift
-        p4 = self.P.reshape(n, 3, n, 3)
-        rows = np.einsum("i,iajb->ajb", w, p4[act])           # V^T P, shape (3, n, 3)
-        p4[act] -= rows[None]
-        cols = np.einsum("j,iajb->iab", w, p4[:, :, act, :])  # (A P) V, shape (n, 3, 3)
-        p4[:, :, act, :] -= cols[:, :, None, :]
+        p3 = self.P.reshape(n, 3, 3 * n)
+        rows = (v @ self.P.reshape(n, 9 * n)).reshape(3, 3 * n)     # V^T P
+        p3[act] -= rows[None]
+        pc = self.P.reshape(3 * n, n, 3)
+        cols = np.stack([self.P[:, b::3] @ v for b in range(3)], axis=1)   # (A P) V
+        pc[:, act, :] -= cols[:, None, :]
         self._symmetrize()
         return shift / SCALE
 
@@ -307,6 +380,25 @@ class EnsembleFilter:
         f.q = np.array(state["q"], dtype=float)
         f.r = np.array(state["r"], dtype=float)
         return f
+
+
+def cholesky(s: np.ndarray) -> np.ndarray:
+    """Lower Cholesky factor of a symmetric positive definite matrix (LAPACK dpotrf).
+
+    Raises numpy.linalg.LinAlgError when the matrix is not positive definite.
+    """
+    c, info = dpotrf(s, lower=1, clean=1)
+    if info:
+        raise np.linalg.LinAlgError(f"matrix not positive definite (dpotrf info {info})")
+    return c
+
+
+def cholesky_inverse(c: np.ndarray) -> np.ndarray:
+    """Inverse of S from its lower Cholesky factor (full symmetric matrix)."""
+    inv, info = dpotrs(c, np.eye(c.shape[0]), lower=1)
+    if info:
+        raise np.linalg.LinAlgError(f"Cholesky solve failed (info {info})")
+    return inv
 
 
 def _q_blocks(q: np.ndarray, t: float) -> np.ndarray:

@@ -42,9 +42,6 @@ class EnsembleSettings:
     def cap(self) -> float:
         """The cap factor A, or infinity when capping is off."""
         return self.weight_cap if self.weight_cap > 0 else math.inf
-    weight_memory_days: float = setting(
-        30.0, unit="d", exclusive_minimum=True, minimum=0.0,
-        doc="time constant of the running prediction-error variance behind the weights")
     probation_days: float = setting(
         10.0, unit="d", minimum=0.0, doc="a clock that joins has zero weight this long")
     relearn_days: float = setting(
@@ -95,7 +92,8 @@ class DetectionSettings:
         doc="the best hypothesis must beat the second by this much (log-likelihood ratio x2)")
     window_epochs: int = setting(
         48, minimum=4, maximum=1000,
-        doc="onsets kept by the slow-change test (frequency steps, drift changes)")
+        doc="onsets (one per epoch) kept by the slow-change test (frequency steps, drift "
+            "changes)")
 
 
 @dataclass(frozen=True)

@@ -29,6 +29,8 @@ from ..units import SECONDS_PER_DAY
 from .settings import ClockSettings, EnsembleSettings
 from .timescale import ClockSetup
 
+#: Fewest epochs of the start-up stretch from which noise levels are estimated.
+_MIN_EPOCHS = 24
 #: Pairs per clock when the ensemble is too large for all pairs.
 _ANCHORS = 8
 #: Smallest channel white PM variance accepted [s^2] (0.1 ps rms): keeps S positive definite.
@@ -85,8 +87,6 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     """
     from ..stability.deviations import overlapping_avar_hvar
     from ..stability.edf import edf_greenhall
-    from ..stability.fit import FLICKER_HVAR, fit_noise
-    from ..stability.hat import NegativeVarianceWarning, n_cornered_hat
 
     idx = np.flatnonzero(members)
     messages: list[str] = []
@@ -94,6 +94,10 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
         return {int(i): None for i in idx}, ["fewer than three clocks: noise levels not "
                                              "separable, typical levels used"]
     t = phase_s.shape[0]
+    if t < _MIN_EPOCHS:
+        return {int(i): None for i in idx}, [
+            f"the start-up stretch has {t} epochs, fewer than the {_MIN_EPOCHS} needed to "
+            f"estimate noise levels; typical levels used"]
     avail = np.isfinite(phase_s[:, idx]).mean(axis=0)
     order = idx[np.argsort(-avail, kind="stable")]
     if idx.size <= 2 * _ANCHORS:
@@ -118,6 +122,17 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     ok = np.isfinite(hvar) & (hvar > 0) & np.isfinite(edf)
     hvar = np.where(ok, hvar, np.nan)
     edf = np.where(ok, edf, 1.0)
+    with warnings.catch_warnings():
+        # columns without any usable pair at some tau are NaN on purpose
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return _separate(idx, pairs, clock_names, ov, hvar, edf, match_tau_s, tau0_s, messages)
+
+
+def _separate(idx, pairs, clock_names, ov, hvar, edf, match_tau_s, tau0_s, messages):
+    """Hat per averaging time, then a fit per clock (see :func:`estimate_noise`)."""
+    from ..stability.fit import FLICKER_HVAR, fit_noise
+    from ..stability.hat import NegativeVarianceWarning, n_cornered_hat
+
     labels = [clock_names[i] for i in idx]
     name_pairs = [(clock_names[a], clock_names[b]) for a, b in pairs]
     with warnings.catch_warnings():
@@ -142,7 +157,8 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     r_sys = 0.0
     if q_ok.sum() >= 3:
         r_sys = 0.5 * fit_noise(ov.tau_s[q_ok], hvar[quiet, q_ok], np.maximum(edf[quiet, q_ok], 1),
-                                kind="hadamard", terms=("r", "q1", "q2")).noise.r_s2
+                                kind="hadamard", terms=_terms(int(q_ok.sum()), True)[:3]
+                                ).noise.r_s2
     out = {}
     for k, i in enumerate(idx):
         mine = (pair_arr[:, 0] == i) | (pair_arr[:, 1] == i)
@@ -161,14 +177,14 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
             messages.append(f"{clock_names[i]}: not separable from its pairs at the shortest "
                             f"averaging times; half of its quietest pair used")
         tau, w = ov.tau_s[use], np.maximum(point_edf[use], 1.0)
-        fit = fit_noise(tau, value[use], w, kind="hadamard", terms=("r", "q1", "q2", "flicker"))
+        fit = fit_noise(tau, value[use], w, kind="hadamard", terms=_terms(tau.size, True))
         r_fit = fit.noise.r_s2
         if r_fit > 4.0 * r_sys:
             rest = value[use] - 10.0 * r_sys / (3.0 * tau ** 2)
             keep = rest > 0
-            if keep.sum() >= 3:
+            if keep.sum() >= 2:
                 fit = fit_noise(tau[keep], rest[keep], w[keep], kind="hadamard",
-                                terms=("q1", "q2", "flicker"))
+                                terms=_terms(int(keep.sum()), False))
             r_fit = r_sys
         h1 = fit.flicker_h_minus1 if np.isfinite(fit.flicker_h_minus1) else 0.0
         q2 = fit.noise.q2_per_s + 6.0 * FLICKER_HVAR * h1 / match
@@ -177,19 +193,44 @@ def estimate_noise(phase_s: np.ndarray, tau0_s: float, members: np.ndarray,
     return out, messages
 
 
+def _terms(n_points: int, with_r: bool) -> tuple:
+    """Terms a curve of ``n_points`` averaging times can carry (a flicker floor needs 6)."""
+    terms = ("r", "q1", "q2", "flicker") if with_r else ("q1", "q2", "flicker")
+    if n_points >= 6:
+        return terms
+    if n_points >= len(terms) - 1:
+        return terms[:-1]
+    return terms[:max(1, n_points - 1)] if with_r else terms[:max(1, n_points)]
+
+
+#: Span of the linear fit giving the initial frequency: the frequency *at the start* is wanted,
+#: and a clock's frequency wanders over a longer stretch [s].
+_FREQ_FIT_S = 3 * SECONDS_PER_DAY
+
+
 def _fit_state(x: np.ndarray, t_s: np.ndarray, drift: bool):
-    """Polynomial fit of a difference series: (phase at t=0, frequency, drift), residual rms."""
+    """Initial (phase, frequency, drift) of a difference series and the frequency fit's span.
+
+    The drift comes from a quadratic over the whole stretch (when it spans three days), the
+    frequency from a straight line over the first :data:`_FREQ_FIT_S` after removing the drift.
+    """
     ok = np.isfinite(x)
     if ok.sum() < 3:
         return None
     tt, xx = t_s[ok], x[ok]
     span = tt.max() - tt.min()
-    deg = 2 if (drift and span >= 3 * SECONDS_PER_DAY and ok.sum() >= 10) else 1
-    scale = max(span, 1.0)
-    coef = np.polynomial.polynomial.polyfit(tt / scale, xx, deg)
-    freq = coef[1] / scale
-    drift_per_s = 2.0 * coef[2] / scale ** 2 if deg == 2 else 0.0
-    return coef[0], freq, drift_per_s, span
+    drift_per_s = 0.0
+    if drift and span >= 3 * SECONDS_PER_DAY and ok.sum() >= 10:
+        scale = max(span, 1.0)
+        coef = np.polynomial.polynomial.polyfit(tt / scale, xx, 2)
+        drift_per_s = 2.0 * coef[2] / scale ** 2
+    early = tt - tt.min() <= _FREQ_FIT_S
+    if early.sum() < 3:
+        early = np.ones(tt.size, dtype=bool)
+    te, xe = tt[early], xx[early] - 0.5 * drift_per_s * tt[early] ** 2
+    fspan = max(te.max() - te.min(), 1.0)
+    coef = np.polynomial.polynomial.polyfit(te / fspan, xe, 1)
+    return coef[0], coef[1] / fspan, drift_per_s, fspan
 
 
 def build_setups(phase_s: np.ndarray, elapsed_s: np.ndarray, reference: np.ndarray,
@@ -222,7 +263,9 @@ def build_setups(phase_s: np.ndarray, elapsed_s: np.ndarray, reference: np.ndarr
     need = np.array([any(math.isnan(getattr(s, k)) for k in ("q1_s", "q2_per_s", "r_s2"))
                      for s in settings])
     estimates, messages = ({}, [])
-    to_estimate = present & ~monitor
+    # monitors (a measured steered output) are estimated too: their levels feed the steering
+    # tracker, never the scale
+    to_estimate = present
     if (need & to_estimate).any():
         estimates, messages = estimate_noise(stretch, tau0_s, to_estimate, clocks)
     setups, sources, noises = [], [], []
@@ -266,33 +309,50 @@ def build_setups(phase_s: np.ndarray, elapsed_s: np.ndarray, reference: np.ndarr
 
 
 def _initial_states(setups, stretch, t, anchor) -> None:
-    """Initial (phase, frequency, drift) of each clock relative to the anchor clock."""
+    """Initial (phase, frequency, drift) of each clock relative to the anchor clock.
+
+    The values are fits of each clock minus the anchor; the covariance of each clock carries
+    only its own share (from its own noise levels), so that the prior of any difference,
+    P_i + P_j, does not depend on which clock served as the anchor (the initial covariance of
+    the unobservable common mode is immaterial: the filter's frame removes it).
+    """
     if not t.size:
         return
     z0 = stretch[0]
-    span = max(float(t[-1]), 1.0)
-    q_anchor = setups[anchor].noise
     for i, s in enumerate(setups):
         if s.monitor or not np.isfinite(z0[i]):
             continue
+        own = _own_prior(s, min(max(float(t[-1]), 1.0), _FREQ_FIT_S), max(float(t[-1]), 1.0))
         if i == anchor:
             s.initial_state = np.zeros(3)
-            s.initial_cov = np.diag([s.noise.r_s2, 0.0, 0.0])
+            s.initial_cov = own
             continue
-        x = stretch[:, i] - stretch[:, anchor]
-        fit = _fit_state(x, t, s.drift_state)
+        fit = _fit_state(stretch[:, i] - stretch[:, anchor], t, s.drift_state)
         if fit is None:
             continue
         _, freq, drift, fspan = fit
-        fspan = max(fspan, 1.0)
-        q1 = s.noise.q1_s + q_anchor.q1_s
-        q2 = s.noise.q2_per_s + q_anchor.q2_per_s
-        # slope of a random-walk phase over T: variance 6 q1 / (5 T); frequency wander q2 T / 3
-        p_yy = 4.0 * (1.2 * q1 / fspan + q2 * fspan / 3.0)
-        p_dd = 4.0 * (720.0 * q1 / fspan ** 3 + 12.0 * q2 / fspan) if s.drift_state else 0.0
-        if not s.drift_state or fspan < 3 * SECONDS_PER_DAY:
+        cov = _own_prior(s, max(fspan, 1.0), max(float(t[-1]), 1.0))
+        if not s.drift_state or float(t[-1]) < 3 * SECONDS_PER_DAY:
             drift = 0.0
-            p_dd = s.drift_prior_per_s ** 2 if s.drift_state else 0.0
         s.initial_state = np.array([z0[i] - z0[anchor], freq, drift])
-        s.initial_cov = np.diag([s.noise.r_s2 + setups[anchor].noise.r_s2, p_yy, p_dd])
-    del span
+        s.initial_cov = cov
+
+
+def _own_prior(s: ClockSetup, span_s: float, drift_span_s: float) -> np.ndarray:
+    """A clock's own share of the uncertainty of the fits: frequency over ``span_s``, drift over
+    ``drift_span_s`` [s].
+
+    Slope of a random-walk phase over T: variance 6 q1 / (5 T) (plus the frequency wander
+    q2 T / 3 over the stretch); curvature: 720 q1 / T^3 + 12 q2 / T; four times these for
+    safety (the fit ignores the correlation of the residuals).  Without a drift state, or over
+    less than three days, the drift keeps its type's prior.
+    """
+    q1, q2 = s.noise.q1_s, s.noise.q2_per_s
+    p_yy = 4.0 * (1.2 * q1 / span_s + q2 * span_s / 3.0)
+    if not s.drift_state:
+        p_dd = 0.0
+    elif drift_span_s < 3 * SECONDS_PER_DAY:
+        p_dd = s.drift_prior_per_s ** 2
+    else:
+        p_dd = 4.0 * (720.0 * q1 / drift_span_s ** 3 + 12.0 * q2 / drift_span_s)
+    return np.diag([s.noise.r_s2, p_yy, p_dd])

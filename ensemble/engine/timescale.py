@@ -31,15 +31,13 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.linalg
-import scipy.optimize
 import scipy.stats
 
 from ..model.clockmodel import ClockNoise
 from ..units import SECONDS_PER_DAY
 from .detect import (SignatureGLR, frozen_prediction_covariance, glr_classify, glr_threshold,
                      window_threshold)
-from .kalman import SCALE, EnsembleFilter
+from .kalman import SCALE, EnsembleFilter, cholesky, cholesky_inverse
 from .settings import DetectionSettings, EnsembleSettings
 from .weights import relative_cap_weights
 
@@ -168,6 +166,7 @@ class TimeScaleEngine:
         self.weights = np.zeros(n)
         self.frame_weights = np.zeros(n)
         self.var_pred = np.full(n, np.nan)  # model prediction-error variance at tau_w [s^2]
+        self._weights_due = 0               # epochs until the weights are recomputed
         # anomaly tests
         self.episodes: dict[int, _Episode] = {}
         rate = detection.false_alarm_rate
@@ -203,8 +202,13 @@ class TimeScaleEngine:
         """Each clock's frequency variance in the filter (relative to the frame) [1]."""
         return np.diag(self.filter.P)[1::3] / SCALE[1] ** 2
 
-    def _frame_weight_update(self) -> None:
-        """Recompute the frame weights v and re-reference the filter (continuity kept)."""
+    def _frame_weight_update(self, initial: bool = False) -> None:
+        """Recompute the frame weights v and re-reference the filter (continuity kept).
+
+        With ``initial`` the projection defines the frame (the scale starts with the frame's
+        frequency and drift); afterwards a change of v moves the frame and the offsets
+        ``frame_frequency`` and ``frame_drift`` absorb the move.
+        """
         eligible = (self.status == ACTIVE) & self.filter.active
         if not eligible.any():
             eligible = self.filter.active & ~self.monitor
@@ -219,9 +223,10 @@ class TimeScaleEngine:
         v = relative_cap_weights(np.where(eligible, hvar, np.inf), eligible, self.cfg.cap(), 0)
         self.frame_weights = v
         shift = self.filter.project(v)
-        self.frame_frequency += shift[1]
-        self.frame_drift += shift[2]
-        self.scale_minus_frame -= shift[0]
+        if not initial:
+            self.frame_frequency += shift[1]
+            self.frame_drift += shift[2]
+            self.scale_minus_frame -= shift[0]
 
     def _refresh_weights(self) -> None:
         """Phase weights from each clock's model prediction-error variance at the weighting
@@ -270,9 +275,9 @@ class TimeScaleEngine:
         if ic.size == 0:
             r[others], var[others] = nu * 1e-9, np.diag(s) * 1e-18
             return r, var, None
-        scc = s[np.ix_(ic, ic)]
-        chol = scipy.linalg.cho_factor(scc, lower=True, check_finite=False)
-        inv = scipy.linalg.cho_solve(chol, np.eye(ic.size), check_finite=False)
+        scc = s[np.ix_(ic, ic)] if ih.size else s
+        chol = cholesky(scc)
+        inv = cholesky_inverse(chol)
         d = np.diag(inv)
         r[others[ic]] = (inv @ nu[ic]) / d * 1e-9
         var[others[ic]] = 1e-18 / d
@@ -301,7 +306,7 @@ class TimeScaleEngine:
         self.status_since[i] = t
         self._reset_tracking(i)
         self.family[:, i] = np.nan
-        self.slow.reset(i)
+        self._reset_slow(i)
         self.prev_clean[i] = False
         self.last_update_t[i] = t
 
@@ -324,7 +329,7 @@ class TimeScaleEngine:
             self.status[i] = ACTIVE
             self.last_update_t[i] = t
         self._refresh_weights()
-        self._frame_weight_update()
+        self._frame_weight_update(initial=True)
 
     # ------------------------------------------------------------------------------ step
     def step(self, t_s: float, mjd: float, z: np.ndarray, ref: int) -> dict:
@@ -412,16 +417,24 @@ class TimeScaleEngine:
         drift = np.where(active, est[:, 2] + self.frame_drift, np.nan)
         # ------------------------------------------------------- statistics and standings
         clean_now = clean & ~decided
-        if not first:
-            self._record_family(offset - pred, clean_now, used, dt)
+        waiting = (self.status == PROBATION) | (self.status == EXCLUDED)
+        if not first and waiting.any():
+            self._record_family(offset - pred, clean_now & waiting, used, dt)
         if self.cfg.tracking and not first:
             self._record_residuals(zscore, clean_now)
-        if (self.status == PROBATION).any() or (self.status == EXCLUDED).any():
+        standing = self.status.copy()
+        if waiting.any():
             self._advance_standings(t_s)
         if self.cfg.tracking and t_s >= self.next_tracking_t:
             self._track_noise()
             self.next_tracking_t = t_s + self.cfg.tracking_interval_days * SECONDS_PER_DAY
-        self._refresh_weights()
+            self._weights_due = 0
+        # the weights follow the standings at once, the slowly changing P_yy daily
+        self._weights_due -= 1
+        if self._weights_due <= 0 or not np.array_equal(standing, self.status) \
+                or decided.any() or first:
+            self._refresh_weights()
+            self._weights_due = max(1, int(SECONDS_PER_DAY / self.tau0_s))
         vp = np.where(np.isfinite(self.var_pred), self.var_pred, 0.0)
         sigma = math.sqrt(float(used ** 2 @ vp))
         self.prev_offset = offset
@@ -473,7 +486,7 @@ class TimeScaleEngine:
         result = None
         if upd.size:
             result = self.filter.update(z[upd] - z[pivot], upd, pivot,
-                                        chol=None if resolved else chol)
+                                        chol=None if resolved else chol, symmetrize=False)
             self.last_update_t[upd] = t_s
             self.last_update_t[pivot] = t_s
         self.filter.project(self.frame_weights)
@@ -569,7 +582,7 @@ class TimeScaleEngine:
             self.filter.correct(i, np.array([a1 * span, a1, 0.0]),
                                 np.array([(s1 * span) ** 2, s1 * s1, 0.0]))
             self._exclude(i, self.t, relearn=True)
-        self.slow.reset(i)
+        self._reset_slow(i)
         return outcome
 
     # ----------------------------------------------------------------- slow changes
@@ -578,7 +591,7 @@ class TimeScaleEngine:
         rel = np.abs(correction / size) if size != 0 else np.zeros(3)
         self.filter.correct(i, correction, (rel * unc) ** 2 + (0.25 * correction) ** 2)
         self.events.append(Event(onset_mjd, self.clocks[i], kind, size, stat, self.mjd, unc))
-        self.slow.reset(i)
+        self._reset_slow(i)
         self._exclude(i, self.t, relearn=True)
 
     # -------------------------------------------------------------------- standings
@@ -632,6 +645,9 @@ class TimeScaleEngine:
         expected = np.maximum(model * (1.0 - 2.0 * used) + scale_var, 1e-3 * model)
         self.family[row, ok] = residual[ok] ** 2 / expected[ok]
 
+    def _reset_slow(self, i: int) -> None:
+        self.slow.reset(i)
+
     def _reset_tracking(self, i: int) -> None:
         self.z2_mean[i] = 1.0
         self.z2_count[i] = 0.0
@@ -671,3 +687,108 @@ class TimeScaleEngine:
             changed = True
         if changed:
             self._frame_weight_update()
+
+    # ------------------------------------------------------------------------- persistence
+    _SCALARS = ("epoch", "t", "mjd", "_t_prev", "_mjd_prev", "frame_frequency", "frame_drift",
+                "scale_minus_frame", "next_tracking_t", "_weights_due")
+    _ARRAYS = ("status", "status_since", "exclusion_days", "last_seen", "last_update_t",
+               "prev_offset", "prev_clean", "prev_freq", "prev_drift", "weights",
+               "frame_weights", "var_pred", "family", "z2_mean", "z2_count")
+
+    def state_dict(self) -> dict:
+        """Everything needed to continue later: numeric arrays and plain numbers only."""
+        state = {"clocks": list(self.clocks), "tau0_s": self.tau0_s,
+                 "noise": np.array([[n.q1_s, n.q2_per_s, n.q3_per_s3, n.r_s2]
+                                    for n in self.noise]),
+                 "has_drift": self.has_drift.copy(), "monitor": self.monitor.copy(),
+                 "frequency_prior": np.array([s.frequency_prior for s in self.setups]),
+                 "drift_prior": np.array([s.drift_prior_per_s for s in self.setups]),
+                 "filter": self.filter.state_dict(), "slow": self.slow.state_dict()}
+        for name in self._SCALARS:
+            state[name] = float(getattr(self, name))
+        for name in self._ARRAYS:
+            state[name] = np.array(getattr(self, name))
+        state["episodes"] = {
+            str(i): {"start_mjd": ep.start_mjd, "start_t": ep.start_t,
+                     "onset_offset_s": ep.onset_offset_s, "prior_cov": np.array(ep.prior_cov),
+                     "times": np.array(ep.times, dtype=float),
+                     "residuals": np.array(ep.residuals, dtype=float),
+                     "variances": np.array(ep.variances, dtype=float)}
+            for i, ep in self.episodes.items()}
+        return state
+
+    @classmethod
+    def from_state(cls, state: dict, ensemble: EnsembleSettings,
+                   detection: DetectionSettings) -> "TimeScaleEngine":
+        """Rebuild an engine saved with :meth:`state_dict` (bit-identical continuation)."""
+        noise = np.asarray(state["noise"], dtype=float)
+        setups = [ClockSetup(ClockNoise(*row), drift_state=bool(d), monitor=bool(m),
+                             frequency_prior=float(fp), drift_prior_per_s=float(dp))
+                  for row, d, m, fp, dp in zip(noise, state["has_drift"], state["monitor"],
+                                               state["frequency_prior"], state["drift_prior"])]
+        eng = cls(state["clocks"], float(state["tau0_s"]), setups, ensemble, detection)
+        eng.filter = EnsembleFilter.from_state(state["filter"])
+        eng.slow.load_state(state["slow"])
+        for name in cls._SCALARS:
+            value = float(state[name])
+            setattr(eng, name, int(value) if name in ("epoch", "_weights_due") else value)
+        for name in cls._ARRAYS:
+            current = getattr(eng, name)
+            setattr(eng, name, np.array(state[name], dtype=current.dtype))
+        eng.episodes = {}
+        for key, ep in state.get("episodes", {}).items():
+            eng.episodes[int(key)] = _Episode(
+                float(ep["start_mjd"]), float(ep["start_t"]), float(ep["onset_offset_s"]),
+                np.array(ep["prior_cov"], dtype=float), list(np.asarray(ep["times"], float)),
+                list(np.asarray(ep["residuals"], float)), list(np.asarray(ep["variances"], float)))
+        return eng
+
+    def add_clocks(self, setups_by_name: dict) -> None:
+        """Add clocks that appear for the first time in a later run (new last columns)."""
+        names = [name for name in setups_by_name if name not in self.clocks]
+        if not names:
+            return
+        state = self.state_dict()
+        k = len(names)
+        n = self.n
+        state["clocks"] = list(self.clocks) + names
+        new = [setups_by_name[name] for name in names]
+        state["noise"] = np.vstack([state["noise"], [[s.noise.q1_s, s.noise.q2_per_s,
+                                                      s.noise.q3_per_s3, s.noise.r_s2]
+                                                     for s in new]])
+        for key, values in (("has_drift", [s.drift_state for s in new]),
+                            ("monitor", [s.monitor for s in new]),
+                            ("frequency_prior", [s.frequency_prior for s in new]),
+                            ("drift_prior", [s.drift_prior_per_s for s in new])):
+            state[key] = np.concatenate([state[key], np.array(values, dtype=state[key].dtype)])
+        fills = {"status": np.array([MONITOR if s.monitor else ABSENT for s in new], np.int8),
+                 "last_seen": -np.inf, "prev_offset": np.nan, "var_pred": np.nan,
+                 "last_update_t": np.nan, "z2_mean": 1.0}
+        for name in self._ARRAYS:
+            arr = state[name]
+            fill = fills.get(name, 0)
+            if arr.ndim == 1:
+                extra = np.broadcast_to(np.asarray(fill, dtype=arr.dtype), (k,))
+                state[name] = np.concatenate([arr, extra])
+            else:   # family (FAMILY_EPOCHS, n)
+                state[name] = np.concatenate([arr, np.full((arr.shape[0], k), np.nan)], axis=1)
+        f = state["filter"]
+        x = np.zeros(3 * (n + k))
+        x[:3 * n] = f["x"]
+        p = np.zeros((3 * (n + k), 3 * (n + k)))
+        p[:3 * n, :3 * n] = f["P"]
+        state["filter"] = {"x": x, "P": p,
+                           "active": np.concatenate([f["active"], np.zeros(k, bool)]),
+                           "q": np.vstack([f["q"], np.zeros((k, 3))]),
+                           "r": np.concatenate([f["r"], np.zeros(k)])}
+        for bank in ("slow",):
+            sl = state[bank]
+            state[bank] = dict(
+                sl, F=np.concatenate([sl["F"], np.zeros((k,) + sl["F"].shape[1:])]),
+                d=np.concatenate([sl["d"], np.zeros((k,) + sl["d"].shape[1:])]),
+                C=np.concatenate([sl["C"], np.zeros((k,) + sl["C"].shape[1:])]),
+                live=np.concatenate([sl["live"], np.zeros((k,) + sl["live"].shape[1:], bool)]))
+        other = TimeScaleEngine.from_state(state, self.cfg, self.det)
+        for i, s in enumerate(new):
+            other._set_noise(n + i, s.noise)
+        self.__dict__.update(other.__dict__)

@@ -23,7 +23,7 @@ import numpy as np
 
 from ..errors import InputError
 from . import timetags
-from .sampling import fit_grid
+from .sampling import fit_grid, place_on_grid
 from .csvtext import Table, decode, read_source, sha256_hex, split
 from .measurements import Measurements
 from .summary import summarize
@@ -44,7 +44,8 @@ _TIME_KEYS = ("mjd", "time")
 
 
 # --------------------------------------------------------------------------- entry points
-def read_measurements(path: str | os.PathLike, reference: str | None = None) -> Measurements:
+def read_measurements(path: str | os.PathLike, reference: str | None = None, *,
+                      continues: tuple[float, float] | None = None) -> Measurements:
     """Read and validate a measurement CSV file (long or wide form).
 
     Parameters
@@ -54,6 +55,10 @@ def read_measurements(path: str | os.PathLike, reference: str | None = None) -> 
     reference : str, optional
         Reference clock of a wide-form file (required there).  For a long-form file it is
         optional and, if given, every row's ``reference`` must equal it.
+    continues : (anchor_mjd, tau0_s), optional
+        The file continues an archive whose last epoch is ``anchor_mjd`` on a ``tau0_s`` grid:
+        the epochs must lie on that grid after the anchor (a single epoch is then enough), and
+        ``elapsed_s`` counts from the anchor (so the first epoch has elapsed_s = k tau0 > 0).
 
     Returns
     -------
@@ -66,10 +71,11 @@ def read_measurements(path: str | os.PathLike, reference: str | None = None) -> 
     InputError
         On any bad input, with file, row, column and what was expected.
     """
-    return _parse_bytes(read_source(path), os.fspath(path), reference)
+    return _parse_bytes(read_source(path), os.fspath(path), reference, continues)
 
 
-def parse_measurements(text_or_fileobj, source: str, reference: str | None = None) -> Measurements:
+def parse_measurements(text_or_fileobj, source: str, reference: str | None = None, *,
+                       continues: tuple[float, float] | None = None) -> Measurements:
     """Parse measurement CSV given as text, bytes or an open file (text or binary).
 
     Parameters
@@ -78,7 +84,7 @@ def parse_measurements(text_or_fileobj, source: str, reference: str | None = Non
         The CSV content.  Text is hashed as its UTF-8 encoding.
     source : str
         Name used in messages and stored as ``Measurements.source``.
-    reference : str, optional
+    reference, continues : optional
         As for :func:`read_measurements`.
     """
     content = text_or_fileobj.read() if hasattr(text_or_fileobj, "read") else text_or_fileobj
@@ -90,10 +96,11 @@ def parse_measurements(text_or_fileobj, source: str, reference: str | None = Non
                              path=source) from None
     if not isinstance(content, (bytes, bytearray, memoryview)):
         raise TypeError(f"expected str, bytes or a file object, got {type(content).__name__}")
-    return _parse_bytes(bytes(content), source, reference)
+    return _parse_bytes(bytes(content), source, reference, continues)
 
 
-def _parse_bytes(data: bytes, path: str, reference: str | None) -> Measurements:
+def _parse_bytes(data: bytes, path: str, reference: str | None,
+                 continues: tuple[float, float] | None = None) -> Measurements:
     sha = sha256_hex(data)
     table = split(decode(data, path), path)
     keys = [n.lower() for n in table.names]
@@ -101,9 +108,9 @@ def _parse_bytes(data: bytes, path: str, reference: str | None) -> Measurements:
         raise InputError(f"--reference {reference!r} is not a clock identifier ({CLOCK_ID_RULE})",
                          path=path)
     if any(k in _LONG_KEYS for k in keys):
-        meas, grid = _parse_long(table, keys, path, reference, sha)
+        meas, grid = _parse_long(table, keys, path, reference, sha, continues)
     else:
-        meas, grid = _parse_wide(table, keys, path, reference, sha)
+        meas, grid = _parse_wide(table, keys, path, reference, sha, continues)
     # warnings only once the whole file is good, so a bad file gives exactly one line
     if grid.spacing == "smallest":
         log.warning("%s: warning: the most common spacing of the epochs fits no grid; the "
@@ -127,6 +134,16 @@ def _warn_long_gap(meas: Measurements, path: str) -> None:
 
 
 # --------------------------------------------------------------------------- helpers
+def _grid(day, sod, tags, path, rows, texts, column, continues):
+    """The sampling grid: found from the epochs, or the archive's when the file continues one."""
+    if continues is None:
+        return fit_grid(day, sod, tags.resolution_s, exact_tags=tags.exact, path=path,
+                        rows=rows, texts=texts, column=column)
+    anchor_mjd, tau0_s = continues
+    return place_on_grid(day, sod, tags.resolution_s, tau0_s=tau0_s, anchor_mjd=anchor_mjd,
+                         exact_tags=tags.exact, path=path, rows=rows, texts=texts, column=column)
+
+
 class _Problems:
     """Collects cell-level problems and raises the one on the earliest line (then leftmost)."""
 
@@ -280,7 +297,8 @@ def _tag_problems(tags, codes, line_no, problems, position, column) -> None:
 
 
 # --------------------------------------------------------------------------- long form
-def _parse_long(table: Table, keys: list[str], path: str, reference: str | None, sha: str):
+def _parse_long(table: Table, keys: list[str], path: str, reference: str | None, sha: str,
+                continues=None):
     import pandas as pd
 
     names = table.names
@@ -349,8 +367,7 @@ def _parse_long(table: Table, keys: list[str], path: str, reference: str | None,
     day, sod, label, ep_line, ep_text, epoch = _epochs(tags, tcodes, line_no, tuniq)
     problems = _Problems(path)
     try:
-        grid = fit_grid(day, sod, tags.resolution_s, exact_tags=tags.exact, path=path,
-                                 rows=ep_line, texts=ep_text, column=names[tcol])
+        grid = _grid(day, sod, tags, path, ep_line, ep_text, names[tcol], continues)
     except InputError as exc:
         problems.add_error(exc, tcol)
         grid = None
@@ -404,7 +421,8 @@ def _one_reference(epoch, ridx, line_no, problems, position, column, clocks, n_e
 
 
 # --------------------------------------------------------------------------- wide form
-def _parse_wide(table: Table, keys: list[str], path: str, reference: str | None, sha: str):
+def _parse_wide(table: Table, keys: list[str], path: str, reference: str | None, sha: str,
+                continues=None):
     import pandas as pd
 
     names = table.names
@@ -464,8 +482,7 @@ def _parse_wide(table: Table, keys: list[str], path: str, reference: str | None,
         raise InputError(f"epoch {tuniq[tcodes[i]]!r} appears twice (rows {int(line_no[j])} and "
                          f"{int(line_no[i])}); keep one row per epoch", path=path,
                          row=int(line_no[i]), column=names[0])
-    grid = fit_grid(day, sod, tags.resolution_s, exact_tags=tags.exact, path=path,
-                             rows=ep_line, texts=ep_text, column=names[0])
+    grid = _grid(day, sod, tags, path, ep_line, ep_text, names[0], continues)
     phase = np.empty_like(phase_rows)
     phase[epoch] = phase_rows
     ref_idx = np.full(label.size, clocks.index(reference), dtype=np.int64)

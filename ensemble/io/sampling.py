@@ -325,3 +325,71 @@ def _collision(f: _Fit, steps, path, rows, texts, column) -> InputError | None:
     return InputError(f"epochs {texts[b]!r} and {texts[a]!r} (row {int(rows[a])}) fall on the "
                       f"same slot of the {f.tau0_s:g} s sampling grid; keep one of them",
                       path=path, row=int(rows[b]), column=column)
+
+
+def place_on_grid(day: np.ndarray, sod_s: np.ndarray, resolution_s: float, *, tau0_s: float,
+                  anchor_mjd: float, exact_tags: bool = False, path: str | None = None,
+                  rows: np.ndarray | None = None, texts=None, column: str = "mjd") -> Grid:
+    """Place epochs on a known grid that continues after an anchor epoch (an archive's last).
+
+    Used when new measurements are appended to an archive: the sampling interval is the
+    archive's, so even a file of one epoch can be read, and every epoch must lie on the grid
+    k * tau0 after the anchor (k >= 1), leap seconds counted.
+
+    Parameters
+    ----------
+    day, sod_s : ndarray, shape (n_epochs,)
+        UTC day (integer MJD) and seconds of day [s] of distinct epochs, sorted by time.
+    resolution_s : float
+        Finest step the tags are written with. [s]
+    tau0_s : float
+        Sampling interval of the grid. [s]
+    anchor_mjd : float
+        MJD label (UTC) of the anchor epoch, the grid's slot 0.
+    exact_tags, path, rows, texts, column
+        As for :func:`fit_grid`.
+
+    Returns
+    -------
+    Grid
+        ``slot`` and ``elapsed_s`` counted from the anchor.
+
+    Raises
+    ------
+    InputError
+        An epoch at or before the anchor (the data overlap or go back in time), off the grid,
+        or two epochs on one slot.
+    """
+    day = np.asarray(day, dtype=np.int64)
+    sod = np.asarray(sod_s, dtype=np.float64)
+    rows = np.arange(1, day.size + 1) if rows is None else np.asarray(rows)
+    texts = [str(m) for m in label_mjd(day, sod)] if texts is None else texts
+    a_day = int(np.floor(anchor_mjd))
+    a_sod = (anchor_mjd - a_day) * _DAY_S
+    u = (day - a_day) * _DAY_S + (sod - a_sod)
+    leaps = (tai_minus_utc_s(day) - tai_minus_utc_s(np.array([a_day]))[0]).astype(np.float64)
+    tol = grid_tolerance_s(tau0_s, resolution_s, exact_tags)
+    if tol is None:
+        tol = 0.25 * tau0_s
+    k = np.rint(u / tau0_s).astype(np.int64)
+    resid = u - k * tau0_s
+    early = np.flatnonzero(k < 1)
+    if early.size:
+        i = int(early[np.argmin(rows[early])])
+        raise InputError(f"epoch {texts[i]!r} is not after the archive's last epoch MJD "
+                         f"{anchor_mjd:.6f}: new data must continue the archive (no overlap, "
+                         f"time must not go back)", path=path, row=int(rows[i]), column=column)
+    bad = np.flatnonzero(np.abs(resid) > tol)
+    if bad.size:
+        i = int(bad[np.argmin(rows[bad])])
+        raise InputError(f"epoch {texts[i]!r} lies {resid[i]:+.4g} s from the archive's "
+                         f"{tau0_s:g} s sampling grid (tolerance {tol:.3g} s); sampling must be "
+                         f"regular", path=path, row=int(rows[i]), column=column)
+    same = np.flatnonzero(np.diff(k) == 0)
+    if same.size:
+        i = int(same[0])
+        raise InputError(f"epochs {texts[i + 1]!r} and {texts[i]!r} fall on the same slot of the "
+                         f"{tau0_s:g} s sampling grid; keep one of them", path=path,
+                         row=int(max(rows[i], rows[i + 1])), column=column)
+    return Grid(float(tau0_s), k, (k * tau0_s + leaps).astype(np.float64), float(tol), "utc",
+                "given")
