@@ -241,12 +241,29 @@ def variant_table(full: dict, kinds, with_reference_change: bool) -> dict:
     return table
 
 
-def difference_stats(err_a: np.ndarray, err_b: np.ndarray, limit_s: float,
-                     tau0_s: float) -> dict:
-    """Max and rms of err_a - err_b over the common epochs, and when it first exceeds a limit."""
+def difference_stats(err_a: np.ndarray, err_b: np.ndarray, limit_s: float, tau0_s: float,
+                     detrend_before: int | None = None) -> dict:
+    """Max and rms of err_a - err_b over the common epochs, and when it first exceeds a limit.
+
+    With ``detrend_before`` = k1 the straight line fitted to the difference over epochs
+    [0, k1) (before any injected event) is removed first: two free-running scales whose
+    ensembles differ from the start (a clock that joins later) differ by an arbitrary phase and
+    frequency, which this takes out, leaving what the events themselves changed.
+    """
     d = err_a - err_b
     ok = np.isfinite(d)
+    if detrend_before is not None:
+        k = np.arange(d.size)
+        fit = ok & (k < detrend_before)
+        if fit.sum() >= 2:
+            coef = np.polyfit(k[fit] * tau0_s, d[fit], 1)
+            d = d - np.polyval(coef, k * tau0_s)
     first = np.flatnonzero(ok & (np.abs(np.where(ok, d, 0.0)) > limit_s))
     return {"max": float(np.max(np.abs(d[ok]))), "rms": float(np.sqrt(np.mean(d[ok] ** 2))),
             "epochs": int(ok.sum()),
             "first_day": float(first[0] * tau0_s / DAY_S) if first.size else math.nan}
+
+
+def first_event_epoch(sim) -> int:
+    """Epoch of the first injected event of any kind (reference changes included)."""
+    return min(int(ev.epoch) for ev in sim.events)

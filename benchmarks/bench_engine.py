@@ -26,7 +26,7 @@ Parts (each target is printed with its measured figure and PASS or FAIL; a summa
 The detection threshold calibration is a separate script: benchmarks/calibrate_detection.py.
 Every simulation is seeded (the scenario files), so the quality figures repeat exactly; the
 speed figures depend on the machine and its load.  By default the BLAS libraries run one thread
-(set before numpy is imported; see engine_speed.py for why).
+(set before numpy is imported), as the pipeline's epoch loop does; see engine_speed.py.
 """
 
 from __future__ import annotations
@@ -252,7 +252,8 @@ def part_anomalies(rep: Report, cache: dict, quick: bool) -> None:
         wander = np.sqrt(q2 * DAY)
         print(f"  {mt.clock}: engine's model before the step q1 {q1:.2e} s, q2 {q2:.2e} /s "
               f"(true {true.q1_s:.2e}, {true.q2_per_s:.2e}; flicker-equivalent q2 "
-              f"{ac.flicker_equivalent_q2(sim, mt.clock):.2e}): the model lets the frequency wander "
+              f"{ac.flicker_equivalent_q2(sim, mt.clock):.2e}): the model lets the frequency "
+              f"wander "
               f"by sqrt(q2 x 1 d) = {wander:.2e} per day, the step is {abs(mt.size) / wander:.1f} "
               f"of that; slow-test peak {mt.peak_slow_stat:.1f} within {ac.DELAY_LIMIT[mt.kind]} "
               f"epochs against the threshold {engine.slow.threshold:.1f}")
@@ -288,20 +289,29 @@ def part_anomalies(rep: Report, cache: dict, quick: bool) -> None:
                f"{st['max']:.3e} s, rms {st['rms']:.3e} s over {st['epochs']} epochs (limit "
                f"3 x measurement noise rms = {limit:.1e} s; first exceeded on day "
                f"{st['first_day']:.2f})", st["max"] < limit)
+    k1 = ac.first_event_epoch(sim)
+    st2 = ac.difference_stats(err_an, err_cl, limit, sim.tau0_s, detrend_before=k1)
+    rep.info("anomalies", f"the same after removing the phase and frequency difference the two "
+             f"runs have before the first event (line fitted over epochs 0-{k1 - 1}): max "
+             f"{st2['max']:.3e} s, rms {st2['rms']:.3e} s (first above {limit:.1e} s on day "
+             f"{st2['first_day']:.2f})")
     if quick:
         print("(attribution by event group skipped with --quick)")
         return
-    _attribution(cache, limit)
+    _attribution(cache, limit, k1)
 
 
-def _attribution(cache: dict, limit: float) -> None:
+def _attribution(cache: dict, limit: float, k1: int) -> None:
     """Re-run the clean scenario with one group of the injected events at a time."""
     full = load_scenario("mixed_lab_anomalies_sized").to_dict()
     clean_sim, clean, _ = engine_run(cache, "mixed_lab_clean")
     err_cl = scale_error_s(clean_sim.true_phase_s, clean.offset_s, clean_sim.reference)
     print(f"attribution: the clean scenario with one group of events at a time (scale time error "
           f"minus the clean run's; limit {limit:.1e} s)")
-    print(f"  {'events':<34} {'max |diff|':>11} {'rms':>10} {'first > limit':>14}  notes")
+    print(f"  columns: max and rms of the difference, first day above the limit; then the max "
+          f"after removing the line fitted before the first event (epochs 0-{k1 - 1})")
+    print(f"  {'events':<34} {'max |diff|':>11} {'rms':>10} {'first > limit':>14} "
+          f"{'detrended':>10}  notes")
     for base, kinds, refch in ac.VARIANT_GROUPS:
         table = ac.variant_table(full, kinds, refch)
         label = ac.variant_label(table, base)
@@ -309,13 +319,18 @@ def _attribution(cache: dict, limit: float) -> None:
         res = form_time_scale(sim.measurements(), keep=True, steer=False)
         err = scale_error_s(sim.true_phase_s, res.offset_s, sim.reference)
         st = ac.difference_stats(err, err_cl, limit, sim.tau0_s)
+        st2 = ac.difference_stats(err, err_cl, limit, sim.tau0_s, detrend_before=k1)
         notes = ""
         if "join" in kinds:
-            masers = [i for i, c in enumerate(sim.clocks) if c.startswith("H")]
-            q_clean = [clean.startup.noise[i].q1_s for i in masers]
-            q_var = [res.startup.noise[i].q1_s for i in masers]
-            notes = ("start-up q1 of the masers " + ", ".join(f"{a:.2e}" for a in q_var)
-                     + " vs clean " + ", ".join(f"{a:.2e}" for a in q_clean))
+            d = err - err_cl
+            k = np.arange(int(DAY / sim.tau0_s), int(20 * DAY / sim.tau0_s))
+            slope = np.polyfit(k * sim.tau0_s, d[k], 1)[0]
+            names = [a["clock"] for a in table["anomalies"]]
+            v = clean.engine.frame_weights
+            notes = (f"frequency difference over days 1-20 {slope:+.2e}; in the clean run "
+                     + ", ".join(f"{c} has frame weight {v[sim.clocks.index(c)]:.3f} at the end "
+                                 f"and a frequency offset {sim.noise[c].frequency_offset:+.2e}"
+                                 for c in names))
         if kinds and kinds[0] in ("frequency_step", "drift_change"):
             d = err - err_cl
             k = np.arange(d.size - int(10 * DAY / sim.tau0_s), d.size)
@@ -326,8 +341,8 @@ def _attribution(cache: dict, limit: float) -> None:
                      f"the clean run " + ", ".join(f"{c} {v[sim.clocks.index(c)]:.3f}"
                                                    for c in names))
         first = f"day {st['first_day']:.2f}" if np.isfinite(st["first_day"]) else "never"
-        print(f"  {label:<34} {st['max']:11.3e} {st['rms']:10.3e} {first:>14}  {notes}",
-              flush=True)
+        print(f"  {label:<34} {st['max']:11.3e} {st['rms']:10.3e} {first:>14} "
+              f"{st2['max']:10.3e}  {notes}", flush=True)
 
 
 # ============================================================================== long

@@ -19,7 +19,6 @@ if str(ROOT) not in sys.path:
 import numpy as np  # noqa: E402
 
 from ensemble.config import load_config  # noqa: E402
-from ensemble.engine.startup import build_setups  # noqa: E402
 from ensemble.engine.timescale import TimeScaleEngine  # noqa: E402
 from ensemble.simulate import Scenario, simulate  # noqa: E402
 
@@ -108,12 +107,11 @@ def ohdev_relative_uncertainty(n_points: int, m: np.ndarray) -> np.ndarray:
 
 
 def build_engine(meas, cfg=None) -> TimeScaleEngine:
-    """The engine exactly as ``ensemble.pipeline.form_time_scale`` builds it (no steering)."""
-    cfg = cfg if cfg is not None else load_config(None)
-    clocks_cfg = {name: cfg.clock(name) for name in meas.clocks}
-    setups, _ = build_setups(meas.phase_s, meas.elapsed_s, meas.reference, meas.tau0_s,
-                             meas.clocks, clocks_cfg, cfg.ensemble)
-    return TimeScaleEngine(meas.clocks, meas.tau0_s, setups, cfg.ensemble, cfg.detection)
+    """Start-up estimation and a fresh engine, exactly as ``form_time_scale`` starts them."""
+    from ensemble.pipeline import _start_engine
+
+    engine, _ = _start_engine(meas, cfg if cfg is not None else load_config(None))
+    return engine
 
 
 @dataclass
@@ -129,7 +127,7 @@ class StepRun:
 
 def run_steps(meas, cfg=None, every: int = 0, check=None, record_slow: bool = False,
               record_noise: bool = False) -> StepRun:
-    """Run TimeScaleEngine.step over all epochs, as the pipeline does.
+    """Run TimeScaleEngine.step over all epochs, as the pipeline does (one BLAS thread).
 
     Parameters
     ----------
@@ -144,7 +142,14 @@ def run_steps(meas, cfg=None, every: int = 0, check=None, record_slow: bool = Fa
         Keep the engine's noise levels of every clock after every epoch (they are re-estimated
         during the run).
     """
+    from threadpoolctl import threadpool_limits
+
     engine = build_engine(meas, cfg)
+    with threadpool_limits(limits=1, user_api="blas"):     # as the pipeline's epoch loop
+        return _steps(engine, meas, every, check, record_slow, record_noise)
+
+
+def _steps(engine, meas, every, check, record_slow, record_noise) -> StepRun:
     t_n, n = meas.n_epochs, meas.n_clocks
     offset = np.empty((t_n, n))
     slow = np.zeros((t_n, n)) if record_slow else np.zeros((0, n))

@@ -7,10 +7,11 @@ to /proc/self/clear_refs (Linux); resource.getrusage ru_maxrss where that is not
 
 BLAS threads.  numpy's OpenBLAS starts one thread per core.  The engine's matrices are small
 (up to a few hundred rows), and on a shared two-core machine a second BLAS thread that has to
-wait for a busy core slows every product down (a 300 x 99 by 99 x 300 product took 24 ms with
-two threads under load against 0.6 ms with one).  The benchmark therefore runs with one BLAS
-thread unless ``--blas-threads`` says otherwise, and prints the time per epoch at 100 clocks
-with the environment's default threading next to it.
+wait for a busy core slows every product down; the pipeline therefore limits BLAS to one thread
+during its epoch loop (threadpoolctl, ensemble/pipeline.py).  The per-epoch timings here call
+TimeScaleEngine.step directly: they run with the thread setting of the benchmark
+(``--blas-threads``, default 1), and once at 100 clocks with the environment's default threading
+to show what the pipeline's limit saves.
 
 Targets: 10 clocks x 1 year hourly CSV to archive < 3 s; 100 clocks x 1 year < 60 s with peak
 memory < 2 GB and state memory independent of the span (half a year and a year, keep=False);
@@ -271,8 +272,9 @@ def part_speed(rep, quick: bool) -> None:
     a10 = run_job({"kind": "archive", "lab": LAB10, "duration": 365.0, "seed": 1104,
                    "repeats": reps})
     t10, c10 = statistics.median(a10["times"]), statistics.median(a10["cpu"])
-    print(f"10 clocks x {a10['epochs']} epochs (lab_scenario {LAB10}, seed 1104), CSV ({a10['rows']} rows) to "
-          f"archive ({a10['archive_mb']:.1f} MB): wall {', '.join(f'{t:.2f}' for t in a10['times'])}"
+    walls = ", ".join(f"{t:.2f}" for t in a10["times"])
+    print(f"10 clocks x {a10['epochs']} epochs (lab_scenario {LAB10}, seed 1104), CSV "
+          f"({a10['rows']} rows) to archive ({a10['archive_mb']:.1f} MB): wall {walls}"
           f" s, CPU {', '.join(f'{t:.2f}' for t in a10['cpu'])} s; reading the CSV alone "
           f"{a10['read_s']:.2f} s; peak memory {a10['peak_mb']:.0f} MB")
     rep.target("speed", f"10 clocks x 1 year CSV to archive: median {t10:.2f} s wall "
