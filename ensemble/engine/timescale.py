@@ -581,6 +581,7 @@ class TimeScaleEngine:
             span = dts[-1] + ep.onset_offset_s
             self.filter.correct(i, np.array([a1 * span, a1, 0.0]),
                                 np.array([(s1 * span) ** 2, s1 * s1, 0.0]))
+            self._discount_from_frame(i, a1, 0.0, span)
             self._exclude(i, self.t, relearn=True)
         self._reset_slow(i)
         return outcome
@@ -590,9 +591,28 @@ class TimeScaleEngine:
         """A windowed-GLR alarm: absorb the detected jump into the clock's state."""
         rel = np.abs(correction / size) if size != 0 else np.zeros(3)
         self.filter.correct(i, correction, (rel * unc) ** 2 + (0.25 * correction) ** 2)
+        age = (self.mjd - onset_mjd) * SECONDS_PER_DAY
+        if kind == "frequency_step":
+            self._discount_from_frame(i, size, 0.0, age)
+        else:
+            self._discount_from_frame(i, size * age, size, age)
         self.events.append(Event(onset_mjd, self.clocks[i], kind, size, stat, self.mjd, unc))
         self._reset_slow(i)
         self._exclude(i, self.t, relearn=True)
+
+    def _discount_from_frame(self, i: int, dy: float, dd: float, age_s: float) -> None:
+        """Keep a member's detected jump out of the scale's frequency and drift.
+
+        The frame follows the v-weighted mean of the clocks' true frequencies, which a jump of
+        clock i moves by v_i times the jump; the scale's frequency is the frame's minus
+        ``frame_frequency``, so adding v_i dy (and v_i dd to ``frame_drift``) leaves the scale
+        as if clock i had not jumped.  What the scale followed before the detection stays.
+        """
+        v = float(self.frame_weights[i])
+        if v > 0:
+            self.frame_frequency += v * dy
+            self.frame_drift += v * dd
+        del age_s
 
     # -------------------------------------------------------------------- standings
     def _exclude(self, i: int, t_s: float, relearn: bool = False) -> None:
@@ -604,6 +624,8 @@ class TimeScaleEngine:
             if relearn:
                 self._reset_tracking(i)
                 self.family[:, i] = np.nan
+            if self.frame_weights[i] > 0:
+                self._frame_weight_update()
         self.prev_clean[i] = False
 
     def _remove(self, i: int, t_s: float) -> None:
