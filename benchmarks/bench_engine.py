@@ -169,6 +169,7 @@ def part_quality(rep: Report, cache: dict, quick: bool, warmup_days: float) -> N
                   f"flicker-equivalent {ac.flicker_equivalent_q2(sim, c):.2e}, true "
                   f"{true.q2_per_s:.2e} /s; r start-up {res.startup.noise[i].r_s2:.1e}, true "
                   f"{true.r_s2:.1e} s^2")
+    _event_frequency_changes(sim, res, errors["scale"])
     sel = m >= 4
     r_best = dev["scale"][sel] / best[sel]
     j = int(np.argmax(r_best))
@@ -185,6 +186,36 @@ def part_quality(rep: Report, cache: dict, quick: bool, warmup_days: float) -> N
         rep.target("quality", f"scale no worse than {label} at any tau (largest ratio "
                    f"{r[j]:.3f} at {_tau_label(m[j] * tau0)}; worse at "
                    f"{', '.join(worse) if worse else 'none'})", bool(np.all(r <= 1.0)))
+
+
+def _event_frequency_changes(sim, res, err: np.ndarray, days: float = 5.0) -> None:
+    """The scale's true frequency error just before and just after each detected event.
+
+    Straight lines fitted to TA - ideal over ``days`` before the event's onset and ``days``
+    after its decision; their slopes differ by the frequency step the scale took there.  On
+    anomaly-free data every event is a false alarm, and a step of the scale there is damage.
+    """
+    if not res.events:
+        return
+    n = int(days * DAY / sim.tau0_s)
+    k = np.arange(err.size)
+    mjd0 = float(sim.mjd[0])
+    v = res.engine.frame_weights
+    print(f"frequency step of the scale across each detected event (slopes of TA - ideal over "
+          f"{days:g} d before the onset and after the decision):")
+    for e in res.events:
+        a = ac.epoch_of(e.mjd, mjd0, sim.tau0_s)
+        b = ac.epoch_of(e.detected_mjd, mjd0, sim.tau0_s)
+        before, after = k[max(0, a - n):a], k[b + 1:b + 1 + n]
+        if before.size < 24 or after.size < 24:
+            continue
+        ok_b, ok_a = np.isfinite(err[before]), np.isfinite(err[after])
+        y0 = np.polyfit(before[ok_b] * sim.tau0_s, err[before][ok_b], 1)[0]
+        y1 = np.polyfit(after[ok_a] * sim.tau0_s, err[after][ok_a], 1)[0]
+        i = sim.clocks.index(e.clock)
+        print(f"  {e.clock:<4} {e.kind:<15} onset {a:5d}: scale frequency {y0:+.3e} -> "
+              f"{y1:+.3e} (change {y1 - y0:+.2e}); frame weight of {e.clock} at the end "
+              f"{v[i]:.3f} x estimated size {e.magnitude:+.2e} = {v[i] * e.magnitude:+.2e}")
 
 
 # ========================================================================== anomalies
