@@ -19,6 +19,9 @@ Configuration
     load_config(path) -> Config, default_config()
 Stability statistics
     deviation(statistic, values, tau0_s, m), stability_table(values, tau0_s, statistic, ...)
+Clock assessment
+    assess_archive(path, settings=None, what_if=False, ...) -> Assessment  (a record per clock:
+    verdict, reasons and the evidence; docs/assessment.md)
 Clock model and simulation
     ClockNoise, transition_matrix, process_noise, PRESETS, simulate_scenario, Scenario,
     lab_scenario  (the subpackage ensemble.simulate holds the simulator itself)
@@ -39,6 +42,7 @@ _LAZY = {
     "default_config": ("ensemble.config", "default_config"),
     "deviation": ("ensemble.stability", "deviation"),
     "stability_table": ("ensemble.stability", "stability_table"),
+    "assess_archive": ("ensemble.assess.core", "assess_archive"),
     "ClockNoise": ("ensemble.model", "ClockNoise"),
     "transition_matrix": ("ensemble.model", "transition_matrix"),
     "process_noise": ("ensemble.model", "process_noise"),

@@ -21,7 +21,7 @@ from . import __version__
 from .errors import EnsembleError
 
 #: Command modules in the order ``--help`` lists them.
-COMMANDS = ("run", "stability", "simulate", "steer", "inspect", "config", "report")
+COMMANDS = ("run", "stability", "simulate", "steer", "inspect", "config", "assess", "report")
 
 log = logging.getLogger("ensemble")
 

@@ -131,7 +131,8 @@ class ContentWriting:
         new_table(self._f, spec, rows_to_table(rows, spec, f"write_table {path}"))
 
     def add_run_record(self, input_name: str, *, input_sha256: str | None = None,
-                       config_toml: str | None = None, time_utc: str | None = None) -> None:
+                       config_toml: str | None = None, time_utc: str | None = None,
+                       mode: str | None = None) -> None:
         """Describe this run for ``/provenance`` (written on commit; required before it).
 
         Parameters
@@ -144,10 +145,17 @@ class ContentWriting:
             Effective configuration; its SHA-256 is recorded.  Default the root attribute.
         time_utc : str, optional
             Time of the run, ISO 8601 UTC; default the time of the call.
+        mode : str, optional
+            What the run did, for the ``mode`` field; default ``create`` or ``append`` as the
+            writer was opened.  ``assess`` marks a run that only wrote assessment results.
         """
         self._require_open()
+        if mode is not None and mode not in schema.RUN_MODES:
+            raise ValueError(f"add_run_record: mode must be one of {schema.RUN_MODES}, "
+                             f"got {mode!r}")
         self._run = {"input_name": input_name, "input_sha256": input_sha256,
-                     "config_toml": config_toml, "time_utc": time_utc or utc_now()}
+                     "config_toml": config_toml, "time_utc": time_utc or utc_now(),
+                     "mode": mode}
 
     def add_previous_runs(self, rows) -> None:
         """Carry over the ``/provenance`` rows of an archive this one replaces.
@@ -177,7 +185,7 @@ class ContentWriting:
         row = {
             "time_utc": run["time_utc"],
             "software_version": get_attr(f, "software_version", __version__),
-            "mode": self._mode,
+            "mode": run["mode"] or self._mode,
             "input_name": run["input_name"],
             "input_sha256": (run["input_sha256"] if run["input_sha256"] is not None
                              else get_attr(f, "input_sha256", "")),

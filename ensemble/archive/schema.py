@@ -274,7 +274,8 @@ STEERING = TableSpec("/steering", (
 PROVENANCE = TableSpec("/provenance", (
     TableField("time_utc", "str", NO_UNIT, "time of the run, ISO 8601 UTC", 32),
     TableField("software_version", "str", NO_UNIT, "version of ensemble of the run", 32),
-    TableField("mode", "str", NO_UNIT, "create or append", 16),
+    TableField("mode", "str", NO_UNIT, "create, append, or assess (assessment results only)",
+               16),
     TableField("input_name", "str", NO_UNIT, "measurement file of the run as named", 255),
     TableField("input_sha256", "str", NO_UNIT, "SHA-256 (hex) of the measurement file", 64),
     TableField("config_sha256", "str", NO_UNIT, "SHA-256 (hex) of the effective config TOML", 64),
@@ -284,6 +285,9 @@ PROVENANCE = TableSpec("/provenance", (
 ), "one record per run that wrote the archive, oldest first")
 
 CONTRACT_TABLES: tuple[TableSpec, ...] = (EVENTS, STEERING)
+
+#: Values of the /provenance field ``mode``.
+RUN_MODES = ("create", "append", "assess")
 
 #: Group -> description.
 GROUPS: dict[str, str] = {

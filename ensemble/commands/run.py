@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import pathlib
 
 EXAMPLES = """examples:
   ensemble run demo_data/lab_demo.csv -o lab.h5
@@ -34,7 +35,27 @@ def add_parser(sub, parents) -> None:
                    help="reference clock of a wide-form file (its column is absent or zero)")
     p.add_argument("--overwrite", action="store_true",
                    help="replace ARCHIVE.h5 if it exists (default: refuse)")
+    p.add_argument("--report", metavar="DIR",
+                   help="afterwards assess the clocks (into the archive's /assessment) and write "
+                        "the HTML report into DIR")
     p.set_defaults(func=main)
+
+
+def _assess_and_report(archive: str, folder: str, quiet: bool) -> None:
+    """The assessment (stored in the archive) and the HTML report of a finished run."""
+    from ..report import write_report
+
+    try:
+        from ..assess import assess_archive
+    except ImportError:          # pragma: no cover - assessment not part of this build
+        assess_archive = None
+    if assess_archive is not None:
+        assessment = assess_archive(archive, write=True)
+        if not quiet:
+            from ..assess.output import table_text
+            print()
+            print(table_text(assessment))
+    write_report(archive, folder)
 
 
 def main(args: argparse.Namespace) -> int:
@@ -63,6 +84,9 @@ def main(args: argparse.Namespace) -> int:
                 cfg = parse_config(tomllib.loads(arc.attrs["config_toml"]))
     else:
         cfg = load_config(args.config)
+        output = pathlib.Path(args.output)
+        if output.parent != pathlib.Path("") and not output.parent.exists():
+            output.parent.mkdir(parents=True)
         result = run_to_archive(args.input, args.output, config=cfg, reference=args.reference,
                                 overwrite=args.overwrite, progress=not args.quiet)
     if not args.quiet:
@@ -77,11 +101,15 @@ def main(args: argparse.Namespace) -> int:
             print("cautions:")
             for line in CAUTIONS:
                 print(f"  - {line}")
+    if args.report:
+        _assess_and_report(result.archive, args.report, args.quiet)
     if args.append:
         note = (" (re-formed from its measurements: its start-up stretch was not complete)"
                 if result.reformed else "")
         print(f"archive continued: {result.archive}{note}")
     else:
         print(f"archive written: {result.archive}")
+    if args.report:
+        print(f"report written: {pathlib.Path(args.report) / 'index.html'}")
     log.debug("configuration: %s", args.config or "defaults")
     return 0
