@@ -99,7 +99,7 @@ class SizeRow:
     size: float
     reference: float
     ratio: float
-    required: float          # NaN when the brief sets no size
+    required: float          # NaN when no size is required
 
     @property
     def ok(self) -> bool:

@@ -1,6 +1,6 @@
 """Quality and speed figures of the ensemble engine against its targets (prints; asserts nothing).
 
-    python benchmarks/bench_engine.py                      # every part (about 15 min, 2 cores)
+    python benchmarks/bench_engine.py                      # every part (about 5 min, 2 cores)
     python benchmarks/bench_engine.py --part quality       # one part: quality, anomalies,
                                                            # long, speed (or all)
     python benchmarks/bench_engine.py --part all --quick   # smaller version of every part
@@ -87,7 +87,7 @@ class Report:
         print(line, flush=True)
 
     def info(self, part: str, text: str) -> None:
-        """A figure the assignment asks for without a pass mark."""
+        """A figure that has no target (printed without a pass mark)."""
         line = f"[info] {part}: {text}"
         self.infos.append(line)
         print(line, flush=True)

@@ -21,7 +21,7 @@ Two ways of counting are printed:
 The engine uses a (filtered) frequency-step signature instead of the mean-shift one; this is the
 calibration its formula was derived for, not a test of the engine itself.
 
-    python benchmarks/calibrate_detection.py            # 2e7 epochs per window (about 30 s)
+    python benchmarks/calibrate_detection.py            # 2e7 epochs per window (about 15 s)
     python benchmarks/calibrate_detection.py --quick    # 1e6 epochs per window
     python benchmarks/calibrate_detection.py --epochs 20000000 --seed 7
 

@@ -10,13 +10,11 @@ Greenhall C.A. (2001), "Kalman plus weights: a time scale algorithm", Proc. 33rd
 3. the basic time scale equation (primer d.1) with the weights
    w_i = (1 / q1_i) / sum_j (1 / q1_j) (no cap) fixes the scale at t + tau:
    sum_i w_i [x_i(t + tau) - x^_i(t + tau)] = 0, with x_i(t + tau) = X_iR(t + tau) - c from the
-   measured differences X_iR = clock i - reference (``differences="measured"``), or from the
-   filter's phase estimates (``differences="filtered"``, the variant of d.6 for noisy
-   comparisons).
+   measured differences X_iR = clock i - reference.
 
 The filter runs with the *true* noise levels of the simulation (q1, q2 of each clock and the
-white-PM variance r of each channel), so this is the recipe at its best, the comparison (c) of
-``bench_engine.py``.  Filter: :class:`ensemble.engine.kalman.EnsembleFilter` without its frame
+white-PM variance r of each channel): the recipe with its levels known, the reference KPW(c)
+of ``bench_engine.py``.  Filter: :class:`ensemble.engine.kalman.EnsembleFilter` without its frame
 projection (the raw Jones-Tryon filter, whose frequencies are relative to the filter's implicit
 ensemble), with optionally a *transparent* covariance reduction P -> P - E A E^T after each update
 (primer d.5): it leaves every gain and estimate unchanged and only keeps the unobservable
@@ -49,8 +47,6 @@ class KPWResult:
     ----------
     offset_s : ndarray (T, N)
         Clock - KPW scale from the measured differences [s]; NaN where not measured.
-    offset_filtered_s : ndarray (T, N)
-        Clock - KPW scale of the filtered-differences variant [s].
     weights : ndarray (N,)
         BTSE weights w_i = (1/q1_i) / sum_j (1/q1_j) over all clocks [1].
     max_diag_p : ndarray (T,)
@@ -58,7 +54,6 @@ class KPWResult:
     """
 
     offset_s: np.ndarray
-    offset_filtered_s: np.ndarray
     weights: np.ndarray
     max_diag_p: np.ndarray
 
@@ -152,9 +147,8 @@ def kpw_time_scale(phase_s: np.ndarray, reference: np.ndarray, elapsed_s: np.nda
         flt.set_noise(i, nz.q1_s, nz.q2_per_s, nz.q3_per_s3 if drift[i] else 0.0, nz.r_s2)
     drift_mode = bool(drift.all())
     offset = np.full((n_t, n), np.nan)
-    offset_f = np.full((n_t, n), np.nan)
     max_diag = np.full(n_t, np.nan)
-    prev = {"z": None, "x": None, "freq": None, "drift": None}
+    prev = {"z": None, "freq": None, "drift": None}
     for k in range(n_t):
         z = z_all[k]
         ref = int(reference[k])
@@ -180,23 +174,19 @@ def kpw_time_scale(phase_s: np.ndarray, reference: np.ndarray, elapsed_s: np.nda
                 transparent_reduction(flt, drift_mode)
         max_diag[k] = float(np.max(np.diag(flt.P)))
         est = flt.states_si()
-        x_filt = np.where(measured, est[:, 0] - est[ref, 0], np.nan)   # filtered clock - ref
         if k == 0:
-            w = kpw_weights(q1, measured)
+            w = kpw_weights(q1, measured)      # the scale starts at the weighted mean clock
             c = float(w[measured] @ z[measured])
-            c_f = float(w[measured] @ x_filt[measured])
         else:
             both = measured & np.isfinite(prev["z"])
             w = kpw_weights(q1, both)
+            # x^_i(t + tau) = x_i(t) + y_i tau + d_i tau^2 / 2, then the BTSE:
+            # c = sum_i w_i (X_iR - x^_i), so that x_i = X_iR - c  (primer d.1)
             pred = prev["z"] + prev["freq"] * dt + 0.5 * prev["drift"] * dt * dt
-            pred_f = prev["x"] + prev["freq"] * dt + 0.5 * prev["drift"] * dt * dt
             c = float(w[both] @ (z[both] - pred[both]))
-            c_f = float(w[both] @ (x_filt[both] - pred_f[both]))
         offset[k] = np.where(measured, z - c, np.nan)
-        offset_f[k] = np.where(measured, x_filt - c_f, np.nan)
-        prev = {"z": offset[k], "x": offset_f[k], "freq": est[:, 1],
-                "drift": np.where(drift, est[:, 2], 0.0)}
-    return KPWResult(offset, offset_f, kpw_weights(q1, np.ones(n, dtype=bool)), max_diag)
+        prev = {"z": offset[k], "freq": est[:, 1], "drift": np.where(drift, est[:, 2], 0.0)}
+    return KPWResult(offset, kpw_weights(q1, np.ones(n, dtype=bool)), max_diag)
 
 
 def kpw_for_simulation(sim, drift_states: str = "type", reduce: bool = True) -> KPWResult:
