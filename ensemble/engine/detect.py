@@ -85,7 +85,7 @@ class SignatureGLR:
         self.F = np.zeros(shape + (3,))        # filter response per unit jump (SI)
         self.d = np.zeros(shape)
         self.C = np.zeros(shape)
-        self.onset_t = np.full(window, np.nan)   # onset time of each slot [s]
+        self.onset_t = np.zeros(window)          # onset time of each slot [s] (unused: 0)
         self.onset_mjd = np.full(window, np.nan)
         self.live = np.zeros((n_clocks, window), dtype=bool)
         self.head = 0
@@ -132,24 +132,28 @@ class SignatureGLR:
         # propagate the responses: F <- Phi(dt) F
         F[..., 0] += dt * F[..., 1] + 0.5 * dt * dt * F[..., 2]
         F[..., 1] += dt * F[..., 2]
-        age = np.nan_to_num(t_now - self.onset_t)             # (window,), 0 if unused
+        age = t_now - self.onset_t                            # (window,); unused slots: no weight
         if self._allowed is None or self._allowed[0] is not has_drift:
-            self._allowed = (has_drift, np.stack([np.ones(self.n), has_drift], axis=1))
+            self._allowed = (has_drift, np.stack([np.ones(self.n), has_drift], axis=1)[:, :, None])
         # 1 where the clock's residual counts for that onset and hypothesis, else 0
-        use = (valid[:, None] & self.live)[:, None, :] * self._allowed[1][:, :, None]
-        g_sig = np.empty(self.d.shape)
-        np.subtract(age, F[:, 0, :, 0], out=g_sig[:, 0])
-        np.subtract(0.5 * age * age, F[:, 1, :, 0], out=g_sig[:, 1])
+        if valid.all() and self.live.all():
+            use = self._allowed[1]
+        else:
+            use = (valid[:, None] & self.live)[:, None, :] * self._allowed[1]
+        g_sig = np.stack([age, 0.5 * age * age])[None] - F[..., 0]
         g_sig *= use
         inv_var = np.divide(1.0, var, out=np.zeros(self.n), where=valid)
         gw = g_sig * inv_var[:, None, None]
         self.d += gw * np.where(valid, residual, 0.0)[:, None, None]
         self.C += gw * g_sig
         F += g_sig[..., None] * gain[:, None, None, :]
-        stat = np.divide(self.d * self.d, self.C, out=np.zeros(self.C.shape), where=self.C > 0)
-        hot = stat > self.threshold
+        d, c = self.d, self.C
+        # l = d^2 / C > threshold, written without a division (C >= 0)
+        hot = d * d > self.threshold * c
+        hot &= c > 0
         if not hot.any():
             return []
+        stat = np.divide(d * d, c, out=np.zeros(c.shape), where=c > 0)
         alarms = []
         for i in np.flatnonzero(hot.any(axis=(1, 2))):
             h, slot = np.unravel_index(int(np.argmax(stat[i])), stat[i].shape)

@@ -208,7 +208,7 @@ class EnsembleFilter:
             pr = 3 * ref
             s = (self.P[np.ix_(px, px)] - self.P[px, pr][:, None] - self.P[pr, px][None, :]
                  + self.P[pr, pr])
-        s[np.diag_indices_from(s)] += self.r[clocks]
+        s.flat[::clocks.size + 1] += self.r[clocks]
         return s
 
     def innovations(self, z_s: np.ndarray, clocks: np.ndarray, ref: int):
@@ -259,7 +259,7 @@ class EnsembleFilter:
         if chol is None:
             s = b[px, :] - b[pr, :]
             s = 0.5 * (s + s.T)
-            s[np.diag_indices_from(s)] += self.r[clocks]
+            s.flat[::clocks.size + 1] += self.r[clocks]
             chol = cholesky(s)
         k, info = dpotrs(chol, b.T, lower=1)                            # K^T = S^-1 H P
         if info:

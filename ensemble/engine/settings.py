@@ -91,7 +91,7 @@ class DetectionSettings:
         10.0, unit="1", minimum=0.0,
         doc="the best hypothesis must beat the second by this much (log-likelihood ratio x2)")
     window_epochs: int = setting(
-        48, minimum=4, maximum=1000,
+        32, minimum=4, maximum=1000,
         doc="onsets (one per epoch) kept by the slow-change test (frequency steps, drift "
             "changes)")
 

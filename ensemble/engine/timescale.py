@@ -274,16 +274,29 @@ class TimeScaleEngine:
         """
         r = np.full(self.n, np.nan)
         var = np.full(self.n, np.nan)
-        others = np.flatnonzero(members & (np.arange(self.n) != pivot))
+        sel = members.copy()
+        sel[pivot] = False
+        others = np.flatnonzero(sel)
         if others.size == 0:
             return r, var, None
         nu, s = self.filter.innovations(z[others] - z[pivot], others, pivot)
         c = clean[others]
+        if c.all():                       # the usual case: nobody held
+            chol = cholesky(s)
+            inv = cholesky_inverse(chol)
+            d = inv.diagonal()
+            r[others] = (inv @ nu) / d * 1e-9
+            var[others] = 1e-18 / d
+            ones = inv.sum(axis=0)
+            info = float(ones.sum())
+            r[pivot] = -float(ones @ nu) / info * 1e-9
+            var[pivot] = 1e-18 / info
+            return r, var, chol
         ic, ih = np.flatnonzero(c), np.flatnonzero(~c)
         if ic.size == 0:
             r[others], var[others] = nu * 1e-9, np.diag(s) * 1e-18
             return r, var, None
-        scc = s[np.ix_(ic, ic)] if ih.size else s
+        scc = s[np.ix_(ic, ic)]
         chol = cholesky(scc)
         inv = cholesky_inverse(chol)
         d = np.diag(inv)
@@ -294,12 +307,11 @@ class TimeScaleEngine:
         if clean[pivot]:
             r[pivot] = -float(ones @ nu[ic]) / info * 1e-9
             var[pivot] = 1e-18 / info
-        if ih.size:
-            sch = s[np.ix_(ih, ic)]
-            gain = sch @ inv
-            r[others[ih]] = (nu[ih] - gain @ nu[ic]) * 1e-9
-            var[others[ih]] = (np.diag(s)[ih] - np.einsum("ij,ij->i", gain, sch)) * 1e-18
-        return r, var, (chol if ih.size == 0 else None)
+        sch = s[np.ix_(ih, ic)]
+        gain = sch @ inv
+        r[others[ih]] = (nu[ih] - gain @ nu[ic]) * 1e-9
+        var[others[ih]] = (np.diag(s)[ih] - np.einsum("ij,ij->i", gain, sch)) * 1e-18
+        return r, var, None
 
     # --------------------------------------------------------------------------- set-up
     def _activate(self, i: int, z: np.ndarray, pivot: int, t: float) -> None:
@@ -377,8 +389,9 @@ class TimeScaleEngine:
         self.last_seen[measured] = t_s
         gone = (self.filter.active & ~measured
                 & (t_s - self.last_seen > self.cfg.max_gap_days * SECONDS_PER_DAY))
-        for i in np.flatnonzero(gone):
-            self._remove(i, t_s)
+        if gone.any():
+            for i in np.flatnonzero(gone):
+                self._remove(i, t_s)
         members = measured & self.filter.active & ~self.monitor
         held = np.zeros(self.n, dtype=bool)
         if self.episodes:
@@ -397,7 +410,7 @@ class TimeScaleEngine:
         zscore = np.full(self.n, np.nan)
         decided = np.zeros(self.n, dtype=bool)
         pivot = self._pivot(clean, ref)
-        if not first and pivot >= 0 and members.sum() >= 2:
+        if not first and pivot >= 0 and np.count_nonzero(members) >= 2:
             pivot = self._screen(z, members, clean, pivot, ref, t_s, zscore, decided)
         # ---------------------------------------------------------------- the time scale
         est = self.filter.states_si()
@@ -458,14 +471,13 @@ class TimeScaleEngine:
         Modifies ``clean``, ``zscore`` and ``decided`` in place; returns the final pivot.
         """
         r, var, chol = self._residuals(z, members, pivot, clean)
-        max_hold = max(1, (int(members.sum()) - 1) // 2)
+        max_hold = max(1, (int(np.count_nonzero(members)) - 1) // 2)
         n_new = 0
         while True:
-            zs = np.abs(r) / np.sqrt(var)
-            zs[~clean] = np.nan
-            if not np.isfinite(zs).any():
-                break
-            i = int(np.nanargmax(zs))
+            with np.errstate(invalid="ignore"):
+                zs = np.where(clean, np.abs(r) / np.sqrt(var), -1.0)
+            zs = np.where(np.isfinite(zs), zs, -1.0)
+            i = int(np.argmax(zs))
             if zs[i] <= self.det.hold_sigma or n_new >= max_hold:
                 break
             self._open_episode(i, t_s)
@@ -490,7 +502,9 @@ class TimeScaleEngine:
         if clean[ref] and pivot != ref:
             pivot = ref
             resolved = True
-        upd = np.flatnonzero(clean & (np.arange(self.n) != pivot))
+        sel = clean.copy()
+        sel[pivot] = False
+        upd = np.flatnonzero(sel)
         result = None
         if upd.size:
             result = self.filter.update(z[upd] - z[pivot], upd, pivot,
