@@ -82,7 +82,9 @@ class SignatureGLR:
         self.window = window
         self.threshold = threshold
         shape = (n_clocks, 2, window)
-        self.F = np.zeros(shape + (3,))        # filter response per unit jump (SI)
+        # filter response per unit jump (SI), component first: F[k] is the response of state k
+        # (phase, frequency, drift), contiguous for the per-epoch arithmetic
+        self.F = np.zeros((3,) + shape)
         self.d = np.zeros(shape)
         self.C = np.zeros(shape)
         self.onset_t = np.zeros(window)          # onset time of each slot [s] (unused: 0)
@@ -123,16 +125,19 @@ class SignatureGLR:
         j = self.head
         self.onset_t[j] = t_prev
         self.onset_mjd[j] = mjd_prev
-        self.F[:, :, j] = 0.0
+        self.F[..., j] = 0.0
         self.d[:, :, j] = 0.0
         self.C[:, :, j] = 0.0
         self.live[:, j] = True
         self.head = (j + 1) % self.window
         F = self.F
         # propagate the responses: F <- Phi(dt) F
-        F[..., 0] += dt * F[..., 1] + 0.5 * dt * dt * F[..., 2]
-        F[..., 1] += dt * F[..., 2]
+        F[0] += dt * F[1] + 0.5 * dt * dt * F[2]
+        F[1] += dt * F[2]
         age = t_now - self.onset_t                            # (window,); unused slots: no weight
+        signature = np.empty((2, self.window))                # the jumps' own phase signatures
+        signature[0] = age
+        np.multiply(0.5 * age, age, out=signature[1])
         if self._allowed is None or self._allowed[0] is not has_drift:
             self._allowed = (has_drift, np.stack([np.ones(self.n), has_drift], axis=1)[:, :, None])
         # 1 where the clock's residual counts for that onset and hypothesis, else 0
@@ -140,17 +145,17 @@ class SignatureGLR:
             use = self._allowed[1]
         else:
             use = (valid[:, None] & self.live)[:, None, :] * self._allowed[1]
-        g_sig = np.stack([age, 0.5 * age * age])[None] - F[..., 0]
+        g_sig = signature - F[0]
         g_sig *= use
         inv_var = np.divide(1.0, var, out=np.zeros(self.n), where=valid)
         gw = g_sig * inv_var[:, None, None]
         self.d += gw * np.where(valid, residual, 0.0)[:, None, None]
         self.C += gw * g_sig
-        F += g_sig[..., None] * gain[:, None, None, :]
+        F += g_sig[None] * gain.T[:, :, None, None]
         d, c = self.d, self.C
-        # l = d^2 / C > threshold, written without a division (C >= 0)
+        # l = d^2 / C > threshold, written without a division: C >= 0, and C = 0 only where
+        # nothing was accumulated, where d = 0 too (so the comparison is False there)
         hot = d * d > self.threshold * c
-        hot &= c > 0
         if not hot.any():
             return []
         stat = np.divide(d * d, c, out=np.zeros(c.shape), where=c > 0)
@@ -161,7 +166,7 @@ class SignatureGLR:
             unc = 1.0 / math.sqrt(self.C[i, h, slot])
             a = age[slot]
             truth = np.array([a, 1.0, 0.0]) if h == 0 else np.array([0.5 * a * a, a, 1.0])
-            correction = (truth - self.F[i, h, slot]) * size
+            correction = (truth - self.F[:, i, h, slot]) * size
             alarms.append((int(i), SLOW_HYPOTHESES[h], float(self.onset_mjd[slot]), float(size),
                            float(unc), float(stat[i, h, slot]), correction))
         return alarms
@@ -169,21 +174,24 @@ class SignatureGLR:
     def reset(self, i: int) -> None:
         """Forget clock i's onsets (after a detection or a re-initialisation)."""
         self.live[i] = False
-        self.F[i] = 0.0
+        self.F[:, i] = 0.0
         self.d[i] = 0.0
         self.C[i] = 0.0
 
     def state_dict(self) -> dict:
-        return {"F": self.F.copy(), "d": self.d.copy(), "C": self.C.copy(),
+        # F is stored clock first, (n, 2, window, 3)
+        return {"F": np.moveaxis(self.F, 0, -1).copy(), "d": self.d.copy(), "C": self.C.copy(),
                 "onset_t": self.onset_t.copy(), "onset_mjd": self.onset_mjd.copy(),
                 "live": self.live.copy(), "head": np.array(self.head)}
 
     def load_state(self, state: dict) -> None:
-        for key in ("F", "d", "C", "onset_t", "onset_mjd"):
+        for key in ("d", "C", "onset_t", "onset_mjd"):
             setattr(self, key, np.array(state[key], dtype=float))
+        self.F = np.ascontiguousarray(np.moveaxis(np.array(state["F"], dtype=float), -1, 0))
+        self.onset_t = np.nan_to_num(self.onset_t)            # unused slots: 0
         self.live = np.array(state["live"], dtype=bool)
         self.head = int(state["head"])
-        self.n = self.F.shape[0]
+        self.n = self.d.shape[0]
         self._allowed = None
 
 
