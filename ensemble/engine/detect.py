@@ -141,7 +141,7 @@ class SignatureGLR:
         if self._allowed is None or self._allowed[0] is not has_drift:
             self._allowed = (has_drift, np.stack([np.ones(self.n), has_drift], axis=1)[:, :, None])
         # 1 where the clock's residual counts for that onset and hypothesis, else 0
-        if valid.all() and self.live.all():
+        if np.count_nonzero(valid) == self.n and np.count_nonzero(self.live) == self.live.size:
             use = self._allowed[1]
         else:
             use = (valid[:, None] & self.live)[:, None, :] * self._allowed[1]
@@ -156,7 +156,7 @@ class SignatureGLR:
         # l = d^2 / C > threshold, written without a division: C >= 0, and C = 0 only where
         # nothing was accumulated, where d = 0 too (so the comparison is False there)
         hot = d * d > self.threshold * c
-        if not hot.any():
+        if not np.count_nonzero(hot):
             return []
         stat = np.divide(d * d, c, out=np.zeros(c.shape), where=c > 0)
         alarms = []

@@ -328,7 +328,7 @@ class EnsembleFilter:
             self.P = a @ self.P @ a.T
             self._symmetrize()
             return shift / SCALE
-        everyone = bool(self.active.all())
+        everyone = np.count_nonzero(self.active) == n
         act = slice(None) if everyone else np.flatnonzero(self.active)
         x3 = self.x.reshape(n, 3)
         shift = v @ x3

@@ -49,8 +49,9 @@ STATE_NAMES = {ABSENT: "absent", PROBATION: "probation", ACTIVE: "active",
 #: Epochs over which a clock must be "in family" before it is (re-)admitted.
 FAMILY_EPOCHS = 24
 #: 99 % point of chi2(n)/n for n = 0..FAMILY_EPOCHS (index n; n = 0 unused).
-_FAMILY_LIMIT = np.concatenate([[np.inf], scipy.stats.chi2.ppf(0.99, np.arange(1, FAMILY_EPOCHS + 1))
-                                / np.arange(1, FAMILY_EPOCHS + 1)])
+_FAMILY_LIMIT = np.concatenate(
+    [[np.inf], scipy.stats.chi2.ppf(0.99, np.arange(1, FAMILY_EPOCHS + 1))
+     / np.arange(1, FAMILY_EPOCHS + 1)])
 
 
 @dataclass
@@ -119,6 +120,13 @@ class _Episode:
     residuals: list = field(default_factory=list)
     variances: list = field(default_factory=list)
 
+
+
+def _nans(n: int) -> np.ndarray:
+    """A float array of n NaN (np.full's cost without its generality, on the per-epoch path)."""
+    out = np.empty(n)
+    out.fill(np.nan)
+    return out
 
 class TimeScaleEngine:
     """Forms the ensemble time scale epoch by epoch.
@@ -272,16 +280,16 @@ class TimeScaleEngine:
         Returns (r [s], var [s^2], chol) with r, var of shape (n,) (NaN outside ``members``)
         and the Cholesky factor of the clean channels' S (scaled units) or None.
         """
-        r = np.full(self.n, np.nan)
-        var = np.full(self.n, np.nan)
+        r = _nans(self.n)
+        var = _nans(self.n)
         sel = members.copy()
         sel[pivot] = False
-        others = np.flatnonzero(sel)
+        others = sel.nonzero()[0]
         if others.size == 0:
             return r, var, None
         nu, s = self.filter.innovations(z[others] - z[pivot], others, pivot)
         c = clean[others]
-        if c.all():                       # the usual case: nobody held
+        if np.count_nonzero(c) == c.size:        # the usual case: nobody held
             chol = cholesky(s)
             inv = cholesky_inverse(chol)
             d = inv.diagonal()
@@ -292,7 +300,7 @@ class TimeScaleEngine:
             r[pivot] = -float(ones @ nu) / info * 1e-9
             var[pivot] = 1e-18 / info
             return r, var, chol
-        ic, ih = np.flatnonzero(c), np.flatnonzero(~c)
+        ic, ih = c.nonzero()[0], (~c).nonzero()[0]
         if ic.size == 0:
             r[others], var[others] = nu * 1e-9, np.diag(s) * 1e-18
             return r, var, None
@@ -333,7 +341,7 @@ class TimeScaleEngine:
     def _start(self, t: float, z: np.ndarray) -> None:
         """First epoch: states from the start-up estimation (relative to the reference)."""
         measured = np.isfinite(z) & ~self.monitor
-        for i in np.flatnonzero(measured):
+        for i in measured.nonzero()[0]:
             s = self.setups[i]
             if s.initial_state is not None:
                 state = np.array(s.initial_state, dtype=float)
@@ -389,8 +397,8 @@ class TimeScaleEngine:
         self.last_seen[measured] = t_s
         gone = (self.filter.active & ~measured
                 & (t_s - self.last_seen > self.cfg.max_gap_days * SECONDS_PER_DAY))
-        if gone.any():
-            for i in np.flatnonzero(gone):
+        if np.count_nonzero(gone):
+            for i in gone.nonzero()[0]:
                 self._remove(i, t_s)
         members = measured & self.filter.active & ~self.monitor
         held = np.zeros(self.n, dtype=bool)
@@ -398,16 +406,16 @@ class TimeScaleEngine:
             held[list(self.episodes)] = True
         held &= members
         new = measured & ~self.filter.active & ~self.monitor
-        if new.any() and not first:
+        if np.count_nonzero(new) and not first:
             pivot = self._pivot(members & ~held, ref)
             if pivot >= 0:
-                for i in np.flatnonzero(new):
+                for i in new.nonzero()[0]:
                     self._activate(i, z, pivot, t_s)
                     members[i] = True
                 self._frame_weight_update()
 
         clean = members & ~held
-        zscore = np.full(self.n, np.nan)
+        zscore = _nans(self.n)
         decided = np.zeros(self.n, dtype=bool)
         pivot = self._pivot(clean, ref)
         if not first and pivot >= 0 and np.count_nonzero(members) >= 2:
@@ -425,7 +433,7 @@ class TimeScaleEngine:
                 w0 = (measured & self.filter.active).astype(float)
             used = w0 / w0.sum()
             c = float(used[measured] @ z[measured])
-        elif contrib.any():
+        elif np.count_nonzero(contrib):
             used[contrib] = self.weights[contrib] / self.weights[contrib].sum()
             c = float(used[contrib] @ (z[contrib] - pred[contrib]))
         else:
@@ -439,12 +447,12 @@ class TimeScaleEngine:
         # ------------------------------------------------------- statistics and standings
         clean_now = clean & ~decided
         waiting = (self.status == PROBATION) | (self.status == EXCLUDED)
-        if not first and waiting.any():
+        if not first and np.count_nonzero(waiting):
             self._record_family(offset - pred, clean_now & waiting, used, dt)
         if self.cfg.tracking and not first:
             self._record_residuals(zscore, clean_now)
         standing = self.status.copy()
-        if waiting.any():
+        if np.count_nonzero(waiting):
             self._advance_standings(t_s)
         if self.cfg.tracking and t_s >= self.next_tracking_t:
             self._track_noise()
@@ -453,7 +461,7 @@ class TimeScaleEngine:
         # the weights follow the standings at once, the slowly changing P_yy daily
         self._weights_due -= 1
         if self._weights_due <= 0 or not np.array_equal(standing, self.status) \
-                or decided.any() or first:
+                or np.count_nonzero(decided) or first:
             self._refresh_weights()
             self._weights_due = max(1, int(SECONDS_PER_DAY / self.tau0_s))
         vp = np.where(np.isfinite(self.var_pred), self.var_pred, 0.0)
@@ -474,9 +482,9 @@ class TimeScaleEngine:
         max_hold = max(1, (int(np.count_nonzero(members)) - 1) // 2)
         n_new = 0
         while True:
-            with np.errstate(invalid="ignore"):
-                zs = np.where(clean, np.abs(r) / np.sqrt(var), -1.0)
-            zs = np.where(np.isfinite(zs), zs, -1.0)
+            # NaN (non-members) propagates without a warning; var > 0 wherever it is finite
+            zs = np.abs(r) / np.sqrt(np.maximum(var, 1e-300))
+            zs = np.where(clean & np.isfinite(zs), zs, -1.0)
             i = int(np.argmax(zs))
             if zs[i] <= self.det.hold_sigma or n_new >= max_hold:
                 break
@@ -504,7 +512,7 @@ class TimeScaleEngine:
             resolved = True
         sel = clean.copy()
         sel[pivot] = False
-        upd = np.flatnonzero(sel)
+        upd = sel.nonzero()[0]
         result = None
         if upd.size:
             result = self.filter.update(z[upd] - z[pivot], upd, pivot,
@@ -716,7 +724,8 @@ class TimeScaleEngine:
                            / self.tau0_s)
         week = 7 * SECONDS_PER_DAY / self.tau0_s
         ratio = self.z2_mean
-        significant = (n_eff >= week) & (np.abs(ratio - 1.0) > 3.0 * np.sqrt(2.0 / np.maximum(n_eff, 1)))
+        significant = ((n_eff >= week)
+                       & (np.abs(ratio - 1.0) > 3.0 * np.sqrt(2.0 / np.maximum(n_eff, 1))))
         changed = False
         for i in np.flatnonzero(significant & self.filter.active & ~self.monitor):
             f = float(np.clip(ratio[i], 1.0 / limit, limit))
