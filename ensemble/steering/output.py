@@ -11,6 +11,7 @@ import csv
 import datetime as _dt
 import json
 import math
+import operator
 
 import numpy as np
 
@@ -79,20 +80,24 @@ def cautions_text(settings: SteeringSettings | None = None) -> str:
 def records_to_columns(records: list[SteeringRecord]) -> dict[str, np.ndarray]:
     """Controller records -> the ``/steering`` table's columns (dtypes of STEERING_COLUMNS)."""
     reason_code = {name: i for i, name in enumerate(REASONS)}
-    get = lambda name: [getattr(r, name) for r in records]   # noqa: E731
+    fields = ("mjd", "frequency_correction", "phase_error_s", "frequency_error",
+              "drift_error_per_s", "total_correction", "proposed_correction",
+              "predicted_phase_error_s", "predicted_sd_s", "command_epoch", "clipped", "reason")
+    rows = list(map(operator.attrgetter(*fields), records))        # one pass over the records
+    cols = dict(zip(fields, zip(*rows))) if rows else {name: () for name in fields}
     return {
-        "mjd": np.array(get("mjd"), dtype="f8"),
-        "frequency_correction": np.array(get("frequency_correction"), dtype="f8"),
-        "phase_error": np.array(get("phase_error_s"), dtype="f8"),
-        "frequency_error": np.array(get("frequency_error"), dtype="f8"),
-        "drift_error": np.array(get("drift_error_per_s"), dtype="f8") * SECONDS_PER_DAY,
-        "total_correction": np.array(get("total_correction"), dtype="f8"),
-        "proposed_correction": np.array(get("proposed_correction"), dtype="f8"),
-        "predicted_phase_error": np.array(get("predicted_phase_error_s"), dtype="f8"),
-        "predicted_phase_error_sd": np.array(get("predicted_sd_s"), dtype="f8"),
-        "command_epoch": np.array(get("command_epoch"), dtype="i1"),
-        "clipped": np.array(get("clipped"), dtype="i1"),
-        "reason": np.array([reason_code[r] for r in get("reason")], dtype="i1"),
+        "mjd": np.array(cols["mjd"], dtype="f8"),
+        "frequency_correction": np.array(cols["frequency_correction"], dtype="f8"),
+        "phase_error": np.array(cols["phase_error_s"], dtype="f8"),
+        "frequency_error": np.array(cols["frequency_error"], dtype="f8"),
+        "drift_error": np.array(cols["drift_error_per_s"], dtype="f8") * SECONDS_PER_DAY,
+        "total_correction": np.array(cols["total_correction"], dtype="f8"),
+        "proposed_correction": np.array(cols["proposed_correction"], dtype="f8"),
+        "predicted_phase_error": np.array(cols["predicted_phase_error_s"], dtype="f8"),
+        "predicted_phase_error_sd": np.array(cols["predicted_sd_s"], dtype="f8"),
+        "command_epoch": np.array(cols["command_epoch"], dtype="i1"),
+        "clipped": np.array(cols["clipped"], dtype="i1"),
+        "reason": np.array([reason_code[r] for r in cols["reason"]], dtype="i1"),
     }
 
 
