@@ -5,7 +5,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from ensemble.assess.history import clean_offsets, clock_histories, on_grid
+from ensemble.assess.history import clean_offsets, clock_histories
+from ensemble.stability.grid import on_grid
 from ensemble.assess.windows import window_layout
 
 DAY = 86400.0

@@ -150,3 +150,25 @@ def test_excluded_clock_is_readmitted_when_back_in_family():
     k = int(8.5 * 24)
     assert (states[k:k + 24] == EXCLUDED).all()
     assert states[-1] == ACTIVE and res.final_weight[3] > 0.1
+
+
+def test_startup_levels_ignore_missing_epochs():
+    # Epochs missing altogether (no row) must be gaps for the start-up's pair variances, not
+    # joins: with clocks 1e-12 apart in frequency, a join of two rows 3 h apart would add a
+    # 7 ns jump to a pair difference.  The levels estimated with four epochs dropped must stay
+    # those of the complete stretch (within the change four fewer terms can make).
+    from ensemble.engine.settings import EnsembleSettings
+    from ensemble.engine.startup import build_setups
+
+    sim = simulate(lab_scenario({"hydrogen_maser": 2, "cesium_standard": 3}, 10.0, seed=8))
+    meas = sim.measurements()
+    keep = np.ones(meas.n_epochs, dtype=bool)
+    keep[[40, 41, 130, 200]] = False
+
+    def levels(m):
+        _, report = build_setups(m.phase_s, m.elapsed_s, m.reference, m.tau0_s, m.clocks, {},
+                                 EnsembleSettings())
+        return np.array([n.q1_s for n in report.noise])
+
+    full, gapped = levels(meas), levels(meas.select(keep))
+    np.testing.assert_allclose(gapped, full, rtol=0.1)

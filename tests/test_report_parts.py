@@ -125,6 +125,55 @@ def test_scale_estimate_is_the_weighted_sum(rng):
             assert st.scale_hi[k] == pytest.approx(np.sqrt(want + want_sd), rel=1e-12)
 
 
+def test_two_quiet_clocks_among_noisy_ones_are_bounded_by_their_pair(rng):
+    # Two equal quiet clocks beside three noisy ones: the hat cannot split the quiet pair, so
+    # each is shown as an upper bound no higher than the pair's own deviation (sigma_i^2 <=
+    # sigma_ij^2 for independent clocks, primer f.2), and the scale of the two at 0.5 / 0.5
+    # uses half the pair variance each.  Analytic cross-check: for two equal white-FM clocks
+    # the true scale variance is 0.25 (s^2 + s^2) = Var(a - b) / 4, exactly what the working
+    # values give.
+    tau0 = 3600.0
+    levels = (1e-15, 1e-15, 1e-13, 2e-13, 4e-13)
+    x = white_fm_clocks(rng, levels, 4000, tau0)
+    mjd = 61000.0 + np.arange(x.shape[0]) / 24.0
+    w = np.tile([0.5, 0.5, 0.0, 0.0, 0.0], (x.shape[0], 1))
+    st = cs.clock_stability(x, mjd, [f"K{i}" for i in range(5)], tau0, weights=w)
+    k = 0                                                     # tau = tau0
+    pair = cs.pair_hadamard(x, tau0, int(st.tau_s[k] / tau0))[0][0, 1]
+    assert st.pair_bound[0, k] == pytest.approx(pair, rel=1e-9)
+    for i in (0, 1):
+        assert np.isnan(st.deviation[i, k])                   # not resolved
+        assert st.hi[i, k] <= np.sqrt(pair) * (1 + 1e-9)      # bounded by the pair
+    # the noisy clocks are resolved, with their white-FM levels (analytic: Hvar = s^2 at tau0)
+    for i in (2, 3, 4):
+        assert st.deviation[i, k] == pytest.approx(levels[i], rel=0.15)
+    assert st.scale_deviation[k] == pytest.approx(np.sqrt(pair / 4.0), rel=1e-9)
+    assert np.sqrt(pair / 4.0) == pytest.approx(np.sqrt(0.5) * 1e-15, rel=0.1)
+
+
+def test_missing_epochs_become_gaps_not_joins(rng):
+    # An epoch missing from the archive (no row at all) must not join its neighbours: with the
+    # elapsed times the rows go on the sampling grid, and the pair statistics equal those of the
+    # series with a NaN in the missing slot.  Cross-check: the package's overlapping Hadamard
+    # variance, whose gap rule skips every term that touches a NaN (SP 1065 gap handling).
+    from ensemble.stability import overlapping_avar_hvar
+
+    tau0 = 3600.0
+    x = white_fm_clocks(rng, LEVELS[:3], 2000, tau0)
+    x[:, 1] += 1e-12 * tau0 * np.arange(x.shape[0])        # a frequency offset between clocks
+    keep = np.ones(x.shape[0], dtype=bool)
+    keep[[500, 1200]] = False                              # two epochs without a row
+    elapsed = tau0 * np.arange(x.shape[0])
+    mjd = 61000.0 + elapsed / 86400.0
+    st = cs.clock_stability(x[keep], mjd[keep], ["A", "B", "C"], tau0, elapsed_s=elapsed[keep])
+    gapped = x.copy()
+    gapped[~keep] = np.nan
+    want = cs.clock_stability(gapped, mjd, ["A", "B", "C"], tau0)
+    np.testing.assert_allclose(st.variance, want.variance, rtol=1e-12)
+    direct = overlapping_avar_hvar(gapped[:, 0] - gapped[:, 1], tau0, [1]).hvar[0]
+    assert st.pair_bound[0, 0] == pytest.approx(direct, rel=1e-9)
+
+
 def test_too_few_clocks_give_no_estimate(rng):
     x = white_fm_clocks(rng, LEVELS[:2], 500)
     assert cs.clock_stability(x, np.arange(501.0), ["A", "B"], 3600.0) is None

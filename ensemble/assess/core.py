@@ -33,8 +33,9 @@ from ..io.measurements import Measurements
 from ..model.clockmodel import ClockNoise
 from ..model.presets import PRESETS, expected_hdev
 from ..stability.fit import FLICKER_AVAR, fit_noise
+from ..stability.grid import on_grid
 from ..units import SECONDS_PER_DAY
-from .history import clean_offsets, clock_histories, on_grid
+from .history import clean_offsets, clock_histories
 from .holdover import holdover_time, predict_time_error
 from .ownstability import own_stability
 from .records import (Assessment, ClockAssessment, Deviation, Holdover, NoiseLevels, WhatIf)

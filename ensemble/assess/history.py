@@ -3,10 +3,9 @@ the cleaned offsets the stability statistics use.
 
 Cleaning (:func:`clean_offsets`): the noise statistics describe a clock's random noise, while
 its anomalies are counted separately, so before any variance is computed a detected outlier's
-reading is dropped (NaN) and a detected phase step is taken out of the later offsets (its
-estimated size is subtracted from the epoch of the step on).  Frequency steps and drift changes
-stay in the data: they are part of how a clock wanders, and removing them would need their
-onset to the epoch.
+reading is dropped (NaN), and detected phase steps, frequency steps and drift changes are
+taken out of the later offsets with their estimated sizes, from the event's epoch on (a step,
+a ramp, a parabola).  The report's stability figures use the same cleaning.
 """
 
 from __future__ import annotations
@@ -167,9 +166,9 @@ def clean_offsets(offset_s: np.ndarray, mjd: np.ndarray, clocks, events) -> np.n
     mjd : ndarray, shape (T,)
         Epochs. [d]
     clocks : sequence of str
-    events : pandas.DataFrame
+    events : pandas.DataFrame or None
         /events: magnitude in s for outliers and phase steps, 1 for frequency steps, 1/d for
-        drift changes (as the archive stores them).
+        drift changes (as the archive stores them); None: no events.
 
     Returns
     -------
@@ -177,7 +176,7 @@ def clean_offsets(offset_s: np.ndarray, mjd: np.ndarray, clocks, events) -> np.n
         A cleaned copy. [s]
     """
     x = np.array(offset_s, dtype=float, copy=True)
-    if not len(events):
+    if events is None or not len(events):
         return x
     col = {c: i for i, c in enumerate(clocks)}
     for row in events.itertuples(index=False):
@@ -196,42 +195,3 @@ def clean_offsets(offset_s: np.ndarray, mjd: np.ndarray, clocks, events) -> np.n
         elif row.kind == "drift_change" and np.isfinite(row.magnitude):
             x[k:, i] -= 0.5 * float(row.magnitude) / 86400.0 * ((mjd[k:] - row.mjd) * 86400.0) ** 2
     return x
-
-
-def on_grid(elapsed_s: np.ndarray, tau0_s: float, *arrays: np.ndarray):
-    """Rows placed on the regular sampling grid, NaN rows where an epoch is missing.
-
-    The stability statistics index time by row, so an epoch missing from the archive (a
-    comparator restart leaves no row at all) must become a row of NaN: a difference across the
-    gap would otherwise span a longer time than its averaging time says.
-
-    Parameters
-    ----------
-    elapsed_s : ndarray, shape (T,)
-        Epochs on the continuous time axis. [s]
-    tau0_s : float
-        Nominal sampling interval. [s]
-    arrays : ndarray, shape (T, ...) each
-        Per-epoch arrays to place.
-
-    Returns
-    -------
-    slot : ndarray of int, shape (T,)
-        Grid slot of each row (slot k is elapsed_s[0] + k tau0).
-    misfit : float
-        Largest distance of an epoch from its slot, in sampling intervals.
-    placed : list of ndarray, shape (K, ...) each
-        The arrays on the grid, K = slot[-1] + 1 (float; NaN in empty slots).
-    """
-    e = np.asarray(elapsed_s, dtype=float)
-    pos = (e - e[0]) / float(tau0_s)
-    slot = np.rint(pos).astype(np.int64)
-    misfit = float(np.max(np.abs(pos - slot))) if e.size else 0.0
-    n_k = int(slot[-1]) + 1 if e.size else 0
-    placed = []
-    for a in arrays:
-        a = np.asarray(a, dtype=float)
-        out = np.full((n_k,) + a.shape[1:], np.nan)
-        out[slot[::-1]] = a[::-1]          # on a repeated slot the first row wins
-        placed.append(out)
-    return slot, misfit, placed

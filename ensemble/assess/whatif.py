@@ -24,7 +24,8 @@ import numpy as np
 
 from ..config import Config
 from ..io.measurements import Measurements
-from .history import clean_offsets, on_grid
+from ..stability.grid import on_grid
+from .history import clean_offsets
 from .scalestab import EffectiveWeights, effective_weights
 
 

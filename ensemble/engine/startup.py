@@ -25,6 +25,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..model.clockmodel import ClockNoise
+from ..stability.grid import on_grid
 from ..units import SECONDS_PER_DAY
 from .likelihood import refine_q2
 from .settings import ClockSettings, EnsembleSettings
@@ -275,7 +276,9 @@ def build_setups(phase_s: np.ndarray, elapsed_s: np.ndarray, reference: np.ndarr
     # tracker, never the scale
     to_estimate = present
     if (need & to_estimate).any():
-        estimates, messages, long_term = estimate_noise(stretch, tau0_s, to_estimate, clocks)
+        # the pair variances index time by row: a missing epoch must be a NaN row, not a join
+        _, _, (on_slots,) = on_grid(t, tau0_s, stretch)
+        estimates, messages, long_term = estimate_noise(on_slots, tau0_s, to_estimate, clocks)
         drift_of = np.array([ensemble.drift_states if s.drift_state == "default"
                              else s.drift_state == "yes" for s in settings])
         estimates = refine_q2(stretch, t, estimates, drift_of)

@@ -19,9 +19,10 @@ three matrix products per averaging factor instead of N(N-1)/2 passes over the d
 rule is the one of :func:`ensemble.stability.overlapping_avar_hvar` on the differences (a term
 is used when all its points are present).
 
-**Cleaning.**  Epochs of detected outliers are left out (NaN) for their clock, and detected
-phase steps are taken out with their estimated size (the clock's offset from the step's
-epoch on, minus the event's magnitude).  Frequency steps and drift changes stay in.
+**Cleaning.**  The assessment's cleaning (:func:`ensemble.assess.history.clean_offsets`):
+epochs of detected outliers are left out (NaN) for their clock, and detected phase steps,
+frequency steps and drift changes are taken out with their estimated sizes, so the curves show
+the clocks' noise (the events are marked on the offset plots).
 
 **Uncertainty.**  The EDF of each pair's variance is the Greenhall-Riley EDF
 (:func:`ensemble.stability.edf_for`) for the noise type of the noisier clock of the pair
@@ -31,6 +32,15 @@ uncertainty u_i of each clock's variance; the interval of the deviation is the c
 interval with the effective degrees of freedom nu_i = 2 (sigma_i^2 / u_i)^2 (Satterthwaite's
 approximation).
 
+**Resolution and bounds** (as in the assessment, :mod:`ensemble.assess.ownstability`).  For
+independent clocks sigma_i^2 <= sigma_ij^2 for every pair, so each clock is at most as noisy as
+its quietest pair.  A clock is *resolved* at an averaging time when its estimate is positive
+and its uncertainty is at most half of it (EDF >= 8), and then shown with its interval.
+Otherwise the figure shows an upper bound, the smaller of sqrt(var + sd) and the quietest
+pair's deviation.  Two
+quiet clocks beside much noisier ones (two masers among cesium beams) are typically not
+resolved: their sum is known from their own pair, the split is not.
+
 **Many clocks.**  The hat's uncertainty needs the covariance of all pair estimates, which
 grows as N^4.  With more than :data:`ALL_PAIRS_MAX` clocks each clock is separated, at each
 tau, with the :data:`PANEL_SIZE` most stable other clocks (ranked by the median of their pair
@@ -39,7 +49,10 @@ variances at that tau): a hat of PANEL_SIZE + 1 clocks per clock.
 **The scale.**  For independent clocks combined with weights w_j, the scale's variance is
 sum_j w_j^2 sigma_j^2 (any quadratic-form variance).  The report uses the mean of w_j(t)^2
 over the epochs of the report, the clocks' hat estimates (negative ones as 0), and the
-uncertainty u^2 = sum_j (mean w_j^2)^2 u_j^2 (clock estimates taken as independent).  It is an
+uncertainty u^2 = sum_j (mean w_j^2)^2 u_j^2 (clock estimates taken as independent).  A clock
+that is not resolved enters with the assessment's working value, half of its quietest pair's
+variance b, with the standard uncertainty b / sqrt(12) of a value known only to lie between 0
+and b (uniform distribution); a resolved one enters capped at its bound.  It is an
 estimate of what the weighting achieves, not a measurement of the scale: the scale cannot be
 compared with anything better inside the laboratory.
 """
@@ -53,9 +66,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..assess.history import clean_offsets
+from ..assess.ownstability import RESOLVED_RELATIVE_STD
 from ..stability.confidence import CONFIDENCE_68, deviation_interval
 from ..stability.deviations import averaging_factors, max_factor
 from ..stability.edf import edf_for
+from ..stability.grid import on_grid
 from ..stability.hat import NegativeVarianceWarning, n_cornered_hat
 from ..stability.noiseid import NOISE_CODES, identify_noise
 
@@ -86,6 +102,8 @@ class ClockStability:
         hat gave none or a variance <= 0. [1]
     variance, variance_sd : ndarray, shape (n_clocks, n_tau)
         The hat's variance estimates (may be negative) and their standard uncertainty. [1]
+    pair_bound : ndarray, shape (n_clocks, n_tau)
+        Variance of each clock's quietest pair, the most its own variance can be. [1]
     noise : ndarray of object, shape (n_clocks, n_tau)
         Noise code found on the clock's offset series at each tau ("WFM" ...), "" if none.
     scale_deviation, scale_lo, scale_hi : ndarray, shape (n_tau,)
@@ -103,46 +121,13 @@ class ClockStability:
     hi: np.ndarray
     variance: np.ndarray
     variance_sd: np.ndarray
+    pair_bound: np.ndarray
     noise: np.ndarray
     scale_deviation: np.ndarray
     scale_lo: np.ndarray
     scale_hi: np.ndarray
     method: str
     notes: list = field(default_factory=list)
-
-
-def clean_offsets(offset_s: np.ndarray, mjd: np.ndarray, clocks, events) -> np.ndarray:
-    """Offsets with outlier epochs left out and phase steps taken out (a copy).
-
-    Parameters
-    ----------
-    offset_s : ndarray, shape (T, N)
-        Clock - scale. [s]
-    mjd : ndarray, shape (T,)
-        Epochs. [d]
-    clocks : sequence of str
-        Column names.
-    events : DataFrame or None
-        The /events table (mjd [d], clock, kind, magnitude [s for phase kinds]).
-
-    Returns
-    -------
-    ndarray, shape (T, N) [s]
-    """
-    x = np.array(offset_s, dtype=float)
-    if events is None or not len(events):
-        return x
-    index = {c: j for j, c in enumerate(clocks)}
-    for ev in events.itertuples():
-        j = index.get(ev.clock)
-        if j is None or not math.isfinite(ev.mjd):
-            continue
-        k = int(np.searchsorted(mjd, ev.mjd - 1e-6))
-        if ev.kind == "outlier" and k < len(mjd) and abs(mjd[k] - ev.mjd) < 1e-6:
-            x[k, j] = np.nan
-        elif ev.kind == "phase_step" and math.isfinite(ev.magnitude) and k < len(mjd):
-            x[k:, j] -= ev.magnitude
-    return x
 
 
 def factors_for(n_epochs: int, tau0_s: float) -> np.ndarray:
@@ -233,7 +218,8 @@ def _noise_types(x_s: np.ndarray, tau0_s: float, factors) -> np.ndarray:
 
 
 def clock_stability(offset_s, mjd, clocks, tau0_s: float, weights=None, events=None,
-                    confidence: float = CONFIDENCE_68) -> ClockStability | None:
+                    confidence: float = CONFIDENCE_68,
+                    elapsed_s=None) -> ClockStability | None:
     """Hat estimates of each clock's and the scale's overlapping Hadamard deviation.
 
     Parameters
@@ -252,6 +238,11 @@ def clock_stability(offset_s, mjd, clocks, tau0_s: float, weights=None, events=N
         The /events table (for :func:`clean_offsets`).
     confidence : float
         Two-sided probability of the intervals.
+    elapsed_s : ndarray, shape (T,), optional
+        The epochs on the continuous time axis (/measurements/elapsed) [s].  When given, the
+        rows are placed on the regular sampling grid first (:func:`ensemble.stability.grid.
+        on_grid`: a missing epoch becomes a row of NaN), so no difference spans a gap; without
+        it the rows are taken as consecutive grid slots.
 
     Returns
     -------
@@ -259,6 +250,8 @@ def clock_stability(offset_s, mjd, clocks, tau0_s: float, weights=None, events=N
     """
     clocks = tuple(clocks)
     x_all = clean_offsets(offset_s, np.asarray(mjd, dtype=float), clocks, events)
+    if elapsed_s is not None and len(elapsed_s):
+        _, _, (x_all,) = on_grid(np.asarray(elapsed_s, dtype=float), tau0_s, x_all)
     has = np.isfinite(x_all).sum(axis=0) >= 8
     use = np.flatnonzero(has)
     if use.size < 3:
@@ -271,6 +264,7 @@ def clock_stability(offset_s, mjd, clocks, tau0_s: float, weights=None, events=N
     alphas = _noise_types(x, tau0_s, factors)
     var = np.full((n_all, n_tau), np.nan)
     var_sd = np.full((n_all, n_tau), np.nan)
+    bound = np.full((n_all, n_tau), np.nan)
     notes: list[str] = []
     t_points = x.shape[0]
     panel = use.size > ALL_PAIRS_MAX
@@ -279,8 +273,11 @@ def clock_stability(offset_s, mjd, clocks, tau0_s: float, weights=None, events=N
         est, sd = _hat_at(s, count, alphas[:, k], int(m), t_points, panel)
         var[use, k] = est
         var_sd[use, k] = sd
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)          # a clock without pairs
+            bound[use, k] = np.nanmin(s, axis=1)
     tau = factors * float(tau0_s)
-    dev, lo, hi = _intervals(var, var_sd, confidence)
+    dev, lo, hi = _intervals(var, var_sd, confidence, bound)
     noise = np.full((n_all, n_tau), "", dtype=object)
     noise[use] = np.vectorize(lambda a: NOISE_CODES.get(int(a), ""), otypes=[object])(alphas)
     for i in range(n_all):
@@ -289,13 +286,14 @@ def clock_stability(offset_s, mjd, clocks, tau0_s: float, weights=None, events=N
             where = ", ".join(_tau_text(v) for v in tau[open_][:4])
             more = f" and {open_.size - 4} more" if open_.size > 4 else ""
             notes.append(f"{clocks[i]}: not resolved at tau = {where}{more} (the hat's "
-                         f"estimate is below its uncertainty: the clock is much better than "
-                         f"the others there, or the record is short); shown as upper bounds")
-    s_dev, s_lo, s_hi = _scale_estimate(var, var_sd, weights, confidence)
+                         f"estimate is not clearly above its uncertainty: the clock is much "
+                         f"better than the others there, or the record is short); shown as "
+                         f"upper bounds")
+    s_dev, s_lo, s_hi = _scale_estimate(var, var_sd, bound, weights, confidence)
     method = ("all pairs" if not panel else
               f"each clock with the {PANEL_SIZE} most stable other clocks")
     return ClockStability(tau_s=tau, clocks=clocks, deviation=dev, lo=lo, hi=hi,
-                          variance=var, variance_sd=var_sd, noise=noise,
+                          variance=var, variance_sd=var_sd, pair_bound=bound, noise=noise,
                           scale_deviation=s_dev, scale_lo=s_lo, scale_hi=s_hi, method=method,
                           notes=notes)
 
@@ -369,30 +367,47 @@ def _solve(s, count, level, alpha, m, t_points, group):
     return e, u
 
 
-def _intervals(var, sd, confidence):
+def _resolved(var, sd):
+    """Estimate positive with a relative uncertainty of at most one half (the assessment's rule)."""
+    with np.errstate(invalid="ignore"):
+        return (np.isfinite(var) & np.isfinite(sd) & (var > 0)
+                & (sd <= RESOLVED_RELATIVE_STD * var))
+
+
+def _intervals(var, sd, confidence, bound=None):
     """Deviation and chi-squared interval where the estimate is resolved, else an upper bound.
 
-    Resolved: var > sd (the estimate exceeds its standard uncertainty); the interval uses
-    nu = 2 (var / sd)^2 > 2 degrees of freedom.  Otherwise the deviation is NaN and ``hi``
-    holds the one-sigma upper bound sqrt(var + sd) when that is positive.
+    Resolved: see :func:`_resolved`; the interval uses nu = 2 (var / sd)^2 >= 8 degrees of
+    freedom (the estimate as it is: the quietest pair is itself an estimate, and cutting at it
+    would bias the interval).  Otherwise the deviation is NaN and ``hi`` holds the upper bound:
+    the smaller of sqrt(var + sd) (one sigma above the estimate) and sqrt(bound), the quietest
+    pair (a clock cannot be noisier).
     """
+    if bound is None:
+        bound = np.full(var.shape, np.nan)
     dev = np.full(var.shape, np.nan)
     lo = np.full(var.shape, np.nan)
     hi = np.full(var.shape, np.nan)
-    finite = np.isfinite(var) & np.isfinite(sd) & (sd > 0)
-    ok = finite & (var > sd)
+    ok = _resolved(var, sd) & (sd > 0)
     if ok.any():
         nu = 2.0 * (var[ok] / sd[ok]) ** 2
         d = np.sqrt(var[ok])
         lo[ok], hi[ok] = deviation_interval(d, nu, confidence)
         dev[ok] = d
-    bound = finite & ~ok & (var + sd > 0)
-    hi[bound] = np.sqrt(var[bound] + sd[bound])
+    with np.errstate(invalid="ignore"):
+        above = np.where(np.isfinite(var) & np.isfinite(sd) & (var + sd > 0), var + sd, np.nan)
+        cap = np.fmin(above, np.where(bound > 0, bound, np.nan))
+    rest = ~ok & np.isfinite(cap)
+    hi[rest] = np.sqrt(cap[rest])
     return dev, lo, hi
 
 
-def _scale_estimate(var, sd, weights, confidence):
-    """sqrt(sum_j mean(w_j^2) sigma_j^2) and its interval at each tau (NaN without weights)."""
+def _scale_estimate(var, sd, bound, weights, confidence):
+    """sqrt(sum_j mean(w_j^2) sigma_j^2) and its interval at each tau (NaN without weights).
+
+    sigma_j^2 is the clock's working value: its estimate capped at its quietest-pair bound b where
+    resolved, b / 2 with uncertainty b / sqrt(12) where not (see the module notes).
+    """
     n_tau = var.shape[1]
     nan = np.full(n_tau, np.nan)
     if weights is None:
@@ -402,11 +417,18 @@ def _scale_estimate(var, sd, weights, confidence):
     weighted = w2 > 0
     if not weighted.any():
         return nan, nan.copy(), nan.copy()
-    v = var[weighted]
-    u = sd[weighted]
+    resolved = _resolved(var, sd)
+    with np.errstate(invalid="ignore"):
+        work = np.where(resolved, np.fmin(var, bound), 0.5 * bound)
+        work_sd = np.where(resolved, sd, bound / math.sqrt(12.0))
+        # no bound (no pair): the raw estimate, as before
+        work = np.where(np.isfinite(work), work, np.maximum(var, 0.0))
+        work_sd = np.where(np.isfinite(work_sd), work_sd, sd)
+    v = work[weighted]
+    u = work_sd[weighted]
     c = w2[weighted][:, None]
     known = np.isfinite(v).all(axis=0)
-    total = np.sum(c * np.maximum(np.where(np.isfinite(v), v, 0.0), 0.0), axis=0)
+    total = np.sum(c * np.where(np.isfinite(v), v, 0.0), axis=0)
     total_sd = np.sqrt(np.sum((c * np.where(np.isfinite(u), u, 0.0)) ** 2, axis=0))
     total = np.where(known, total, np.nan)
     dev, lo, hi = _intervals(total[None, :], total_sd[None, :], confidence)

@@ -141,6 +141,8 @@ def collect(archive_path, days: float | None = None) -> ReportData:
         offset = a.array("/scale/offset", start)
         weight = a.array("/scale/weight", start)
         state = a.array("/scale/state", start)
+        elapsed = (a.array("/measurements/elapsed", start)
+                   if "/measurements/elapsed" in a.datasets else None)
         mjd = mjd_all if start is None else mjd_all[mjd_all >= start]
         events = a.events
         steering_all = a.steering
@@ -158,7 +160,8 @@ def collect(archive_path, days: float | None = None) -> ReportData:
         clocks = a.clocks
     tau0 = nominal_interval_s(mjd_all)
     summary = summarise(path, n_events=10, n_runs=10)
-    stability = clock_stability(offset, mjd, clocks, tau0, weights=weight, events=events)
+    stability = clock_stability(offset, mjd, clocks, tau0, weights=weight, events=events,
+                                elapsed_s=elapsed)
     if stability is None:
         notes.append("stability: the N-cornered hat needs at least three clocks with data "
                      "and a record of at least four epochs")
