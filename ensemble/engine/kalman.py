@@ -74,7 +74,7 @@ class EnsembleFilter:
         self.r = np.zeros(n_clocks)
         self._q_cache: dict = {}
         self._projector = None
-        self._difference_rows = None      # (key, T) of the last channel set (dense path)
+        self._difference_rows: dict = {}  # recent channel sets -> T (dense path, see _rows)
 
     # ------------------------------------------------------------------ set-up and SI helpers
     def set_noise(self, i: int, q1_s: float, q2_per_s: float, q3_per_s3: float,
@@ -200,15 +200,8 @@ class EnsembleFilter:
         """S = H P H^T + R for the channels clock - ref of ``clocks`` (scaled units, ns^2)."""
         clocks = np.asarray(clocks)
         if self.n_clocks <= _DENSE_CLOCKS:
-            # S = T Pxx T^T with T the difference rows on the phase states (the channel set
-            # rarely changes from one epoch to the next: T is kept for the last one)
-            key = (clocks.tobytes(), ref)
-            if self._difference_rows is None or self._difference_rows[0] != key:
-                t = np.zeros((clocks.size, self.n_clocks))
-                t[np.arange(clocks.size), clocks] = 1.0
-                t[:, ref] -= 1.0
-                self._difference_rows = (key, t)
-            t = self._difference_rows[1]
+            # S = T Pxx T^T with T the difference rows on the phase states
+            t = self._rows(clocks, ref)
             pxx = self.P[::3, ::3]
             s = t @ pxx @ t.T
         else:
@@ -218,6 +211,23 @@ class EnsembleFilter:
                  + self.P[pr, pr])
         s.flat[::clocks.size + 1] += self.r[clocks]
         return s
+
+    def _rows(self, clocks: np.ndarray, ref: int) -> np.ndarray:
+        """T, shape (m, n_clocks): row k is +1 at clocks[k], -1 at ref (dense path).
+
+        The channel set rarely changes from one epoch to the next, so the few recent ones are
+        kept.  With T, H P = T P[::3] and P H^T = P[:, ::3] T^T: products instead of gathers.
+        """
+        key = (clocks.tobytes(), int(ref))
+        t = self._difference_rows.get(key)
+        if t is None:
+            if len(self._difference_rows) >= 8:
+                self._difference_rows.clear()
+            t = np.zeros((clocks.size, self.n_clocks))
+            t[np.arange(clocks.size), clocks] = 1.0
+            t[:, ref] -= 1.0
+            self._difference_rows[key] = t
+        return t
 
     def innovations(self, z_s: np.ndarray, clocks: np.ndarray, ref: int):
         """Innovations and their covariance for measurements z (SI, clock - reference).
@@ -263,7 +273,12 @@ class EnsembleFilter:
         px = 3 * clocks
         pr = 3 * ref
         nu = z_s * NS_PER_S - (self.x[px] - self.x[pr])
-        b = self.P[:, px] - self.P[:, [pr]]                            # P H^T
+        dense = self.n_clocks <= _DENSE_CLOCKS
+        if dense:
+            t = self._rows(clocks, ref)
+            b = self.P[:, ::3] @ t.T                                    # P H^T
+        else:
+            b = self.P[:, px] - self.P[:, [pr]]
         if chol is None:
             s = b[px, :] - b[pr, :]
             s = 0.5 * (s + s.T)
@@ -275,7 +290,7 @@ class EnsembleFilter:
         k = k.T
         self.x += k @ nu
         a = self.P - k @ b.T                                            # (I - K H) P
-        ah = a[:, px] - a[:, [pr]]                                       # A H^T
+        ah = a[:, ::3] @ t.T if dense else a[:, px] - a[:, [pr]]        # A H^T
         self.P = a + (k * self.r[clocks] - ah) @ k.T
         if symmetrize:
             self._symmetrize()
