@@ -43,8 +43,11 @@ ROOT = pathlib.Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from ensemble.engine.detect import window_threshold  # noqa: E402
+from ensemble.engine.settings import DetectionSettings  # noqa: E402
 
-WINDOWS = (24, 48, 96)
+WINDOWS = (24, 32, 48, 96)
+#: The engine's default window of the slow-change test (onsets kept).
+DEFAULT_WINDOW = DetectionSettings().window_epochs
 THRESHOLDS = (12.0, 14.0, 16.0, 18.0, 20.0, 22.0, 24.0, 26.0, 28.0)
 #: Epochs processed per block (memory: about 10 float64 arrays of this length).
 BLOCK = 1_000_000
@@ -155,15 +158,17 @@ def main(argv=None) -> int:
             mark = "" if inside else "   (outside the stated range)"
             print(f"  {h:5.1f} {f:10.3e} {per:10.3e} {rate:10.3e} {se:9.1e} {count:7d} "
                   f"{ratio:14.2f}{mark}")
-    h_default = window_threshold(0.25e-5, 48)
-    res = calibrate(48, n_epochs, (h_default,), np.random.default_rng([args.seed, 48, 1]))
+    w_d = DEFAULT_WINDOW
+    h_default = window_threshold(0.25e-5, w_d)
+    res = calibrate(w_d, n_epochs, (h_default,), np.random.default_rng([args.seed, w_d, 1]))
     count = res["alarms"][h_default]
-    print(f"\nW = 48 at the engine's default threshold h = {h_default:.2f} (outside the stated "
-          f"range): formula {formula_rate(h_default, 48):.2e}, measured (reset) "
-          f"{count / n_epochs:.2e} +- {math.sqrt(max(count, 1)) / n_epochs:.1e} ({count} alarms)")
+    print(f"\nW = {w_d} (the engine's default window) at the engine's default threshold "
+          f"h = {h_default:.2f} (outside the stated range): formula "
+          f"{formula_rate(h_default, w_d):.2e}, measured (reset) {count / n_epochs:.2e} +- "
+          f"{math.sqrt(max(count, 1)) / n_epochs:.1e} ({count} alarms)")
     print(f"engine default: false_alarm_rate 1e-5 per clock-epoch, a quarter of it for the "
-          f"slow test -> h = {h_default:.2f} at W = 48 (formula rate "
-          f"{formula_rate(h_default, 48):.2e})")
+          f"slow test -> h = {h_default:.2f} at W = {w_d} (formula rate "
+          f"{formula_rate(h_default, w_d):.2e})")
     factor = math.exp(worst)
     print(f"largest measured/formula factor at W = 48, 14 <= h <= 24 (counts >= 20): "
           f"{factor:.2f}")

@@ -16,8 +16,8 @@ I - K H and two dense n^3 products, and inverts S explicitly.  Here H is a diffe
 rows, so P H^T and A H^T are column differences, and the Joseph product form costs two n x m x n
 products; S is factorised by Cholesky instead of inverted.  The result is the same Joseph update
 (tests compare with filterpy to 1e-12).  The structure pays off as the ensemble grows: the
-benchmark (``benchmarks/bench_engine.py``) measured it 2.5 x faster than filterpy's update at 100
-clocks and 1.2 x at 30, but 0.56 x (slower, call overhead) at 10 clocks.
+benchmark (``benchmarks/bench_engine.py``) measured it 2.3-2.5 x faster than filterpy's update at
+100 clocks and 1.2 x at 30, but 0.6-0.9 x (slower, call overhead) at 10 clocks.
 
 Frame.  The common phase, frequency and drift of all clocks are unobservable (domain primer d.4):
 after every update the state is re-referenced to the v-weighted mean clock,
