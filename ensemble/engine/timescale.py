@@ -295,10 +295,11 @@ class TimeScaleEngine:
             d = inv.diagonal()
             r[others] = (inv @ nu) / d * 1e-9
             var[others] = 1e-18 / d
-            ones = inv.sum(axis=0)
-            info = float(ones.sum())
-            r[pivot] = -float(ones @ nu) / info * 1e-9
-            var[pivot] = 1e-18 / info
+            if clean[pivot]:
+                ones = inv.sum(axis=0)
+                info = float(ones.sum())
+                r[pivot] = -float(ones @ nu) / info * 1e-9
+                var[pivot] = 1e-18 / info
             return r, var, chol
         ic, ih = c.nonzero()[0], (~c).nonzero()[0]
         if ic.size == 0:

@@ -37,9 +37,8 @@ independent clocks sigma_i^2 <= sigma_ij^2 for every pair, so each clock is at m
 its quietest pair.  A clock is *resolved* at an averaging time when its estimate is positive
 and its uncertainty is at most half of it (EDF >= 8), and then shown with its interval.
 Otherwise the figure shows an upper bound, the smaller of sqrt(var + sd) and the quietest
-pair's deviation.  Two
-quiet clocks beside much noisier ones (two masers among cesium beams) are typically not
-resolved: their sum is known from their own pair, the split is not.
+pair's deviation.  Two quiet clocks beside much noisier ones (two masers among cesium beams)
+are typically not resolved: their sum is known from their own pair, the split is not.
 
 **Many clocks.**  The hat's uncertainty needs the covariance of all pair estimates, which
 grows as N^4.  With more than :data:`ALL_PAIRS_MAX` clocks each clock is separated, at each
@@ -48,13 +47,13 @@ variances at that tau): a hat of PANEL_SIZE + 1 clocks per clock.
 
 **The scale.**  For independent clocks combined with weights w_j, the scale's variance is
 sum_j w_j^2 sigma_j^2 (any quadratic-form variance).  The report uses the mean of w_j(t)^2
-over the epochs of the report, the clocks' hat estimates (negative ones as 0), and the
-uncertainty u^2 = sum_j (mean w_j^2)^2 u_j^2 (clock estimates taken as independent).  A clock
-that is not resolved enters with the assessment's working value, half of its quietest pair's
-variance b, with the standard uncertainty b / sqrt(12) of a value known only to lie between 0
-and b (uniform distribution); a resolved one enters capped at its bound.  It is an
-estimate of what the weighting achieves, not a measurement of the scale: the scale cannot be
-compared with anything better inside the laboratory.
+over the epochs of the report, the clocks' hat estimates, and the uncertainty
+u^2 = sum_j (mean w_j^2)^2 u_j^2 (clock estimates taken as independent).  A clock that is not
+resolved enters with the assessment's working value, half of its quietest pair's variance b,
+with the standard uncertainty b / sqrt(12) of a value known only to lie between 0 and b
+(uniform distribution); a resolved one enters capped at its bound.  It is an estimate of what
+the weighting achieves, not a measurement of the scale: the scale cannot be compared with
+anything better inside the laboratory.
 """
 
 from __future__ import annotations
