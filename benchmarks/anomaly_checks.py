@@ -2,7 +2,8 @@
 detected to injected events, and the variants that attribute a change of the scale.
 
 Size references (from each clock's true power-law levels h_alpha and its channel's white PM r,
-``Simulation.noise``; Allan variance of the power-law terms, domain primer c.4):
+``Simulation.noise``; Allan variance of the power-law terms, the usual relations recalled from
+memory and reproduced in ``ensemble.model.presets.allan_variance_from_h``):
 
 * one-step prediction noise sigma_1 = sqrt(tau0^2 AVAR_clock(tau0) + 2 r): the standard deviation
   of a clock's phase prediction error over one sampling interval (its own white FM, flicker FM
@@ -82,8 +83,9 @@ def flicker_equivalent_q2(sim, clock: str, match_epochs: int = 48) -> float:
 
     The start-up of the engine (ensemble/engine/startup.py) carries a fitted flicker FM level
     h_-1 by a random-walk FM level with the same Hadamard variance at 48 tau0:
-    q2 += 6 (4 ln 2 - 1.5 ln 3) h_-1 / (48 tau0) (HVAR of flicker FM 1.124670 h_-1 and of
-    random-walk FM q2 tau / 6, primer c.3, c.4).  This is that level from the true h_-1.
+    q2 += 6 (4 ln 2 - 1.5 ln 3) h_-1 / (48 tau0) (HVAR of flicker FM 1.124670 h_-1, a recalled
+    value whose closed form we identified numerically, and of random-walk FM q2 tau / 6, derived
+    here; ensemble/model/presets.py).  This is that level from the true h_-1.
     """
     par = sim.noise[clock]
     hvar_factor = 4.0 * math.log(2.0) - 1.5 * math.log(3.0)

@@ -1,13 +1,13 @@
 """Reference time scale for the engine benchmark: Kalman plus weights with known noise levels.
 
 Greenhall C.A. (2001), "Kalman plus weights: a time scale algorithm", Proc. 33rd PTTI Meeting,
-445-454 (GR01); written out from the recipe of the domain primer, section d.6:
+445-454 (GR01); the recipe below is our own write-out, consistent with GR01's description:
 
 1. one Jones-Tryon Kalman filter over all clocks (Jones & Tryon 1983, J. Res. NBS 88(1),
    17-24) supplies each clock's frequency y_i and drift d_i at epoch t;
 2. each clock's offset from the scale is predicted to t + tau,
    x_i^(t + tau) = x_i(t) + y_i tau + d_i tau^2 / 2, with x_i(t) relative to the KPW scale;
-3. the basic time scale equation (primer d.1) with the weights
+3. the basic time scale equation (its usual form, written from memory) with the weights
    w_i = (1 / q1_i) / sum_j (1 / q1_j) (no cap) fixes the scale at t + tau:
    sum_i w_i [x_i(t + tau) - x^_i(t + tau)] = 0, with x_i(t + tau) = X_iR(t + tau) - c from the
    measured differences X_iR = clock i - reference.
@@ -17,8 +17,8 @@ white-PM variance r of each channel): the recipe with its levels known, the refe
 of ``bench_engine.py``.  Filter: :class:`ensemble.engine.kalman.EnsembleFilter` without its frame
 projection (the raw Jones-Tryon filter, whose frequencies are relative to the filter's implicit
 ensemble), with optionally a *transparent* covariance reduction P -> P - E A E^T after each update
-(primer d.5): it leaves every gain and estimate unchanged and only keeps the unobservable
-common-mode variance from growing.
+(derived here, see :func:`transparent_reduction`): it leaves every gain and estimate unchanged
+and only keeps the unobservable common-mode variance from growing.
 
 Units: SI at the interface (phase [s], frequency [1], drift [1/s]); the filter works in its own
 scaled units (ns, days).
@@ -84,7 +84,7 @@ def transparent_reduction(flt: EnsembleFilter, drift_mode: bool,
 
     A = fraction * (E^T P^-1 E)^-1 is admissible (P - E A E^T stays positive definite for
     fraction < 1, since (E^T P^-1 E)^-1 is the largest A with P - E A E^T >= 0).  H E = 0 for
-    every difference measurement, so the gains and estimates do not change (primer d.5).
+    every difference measurement, so the gains and estimates do not change (derived here).
     Restricted to the active states with positive variance; the common drift mode only when
     every active clock has a drift state (``drift_mode``).
     """
@@ -181,7 +181,7 @@ def kpw_time_scale(phase_s: np.ndarray, reference: np.ndarray, elapsed_s: np.nda
             both = measured & np.isfinite(prev["z"])
             w = kpw_weights(q1, both)
             # x^_i(t + tau) = x_i(t) + y_i tau + d_i tau^2 / 2, then the BTSE:
-            # c = sum_i w_i (X_iR - x^_i), so that x_i = X_iR - c  (primer d.1)
+            # c = sum_i w_i (X_iR - x^_i), so that x_i = X_iR - c  (the BTSE above)
             pred = prev["z"] + prev["freq"] * dt + 0.5 * prev["drift"] * dt * dt
             c = float(w[both] @ (z[both] - pred[both]))
         offset[k] = np.where(measured, z - c, np.nan)
@@ -208,7 +208,7 @@ def kpw_for_simulation(sim, drift_states: str = "type", reduce: bool = True) -> 
     -----
     Priors: each clock's typical frequency offset and drift of its type (at least 1e-13 and
     1e-16 per day).  The true levels leave out flicker FM, which the three-state model cannot
-    represent (primer c.6).
+    represent (it needs extra Gauss-Markov states; Davis, Greenhall & Stacey 2005).
     """
     from ensemble.model.presets import get_preset
 

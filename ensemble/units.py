@@ -2,8 +2,9 @@
 
 The filter and Riccati code works in scaled units, nanoseconds and days, so that covariances of
 phase (~1e-9 s), frequency (~1e-14) and drift (~1e-21 /s) stay within a few decades of each other
-(domain primer, section b).  The scaling is exact: x' = 1e9 x, t' = t / 86400, hence a frequency
-in ns/day is y * 1e9 * 86400 and a drift in ns/day^2 is d * 1e9 * 86400**2.
+(our own numerical experience: in SI units Riccati solutions lost accuracy or failed).  The
+scaling is exact: x' = 1e9 x, t' = t / 86400, hence a frequency in ns/day is y * 1e9 * 86400
+and a drift in ns/day^2 is d * 1e9 * 86400**2.
 """
 
 from __future__ import annotations

@@ -1,7 +1,7 @@
 """Bad archives give one-line InputErrors; the verifier finds each broken rule; ``inspect`` works.
 
 Each damaged file is made from a conformant one by one deliberate change, so the expected
-problem is known by construction (Cross-check: the rule of contract section 3 that was broken).
+problem is known by construction (Cross-check: the rule of docs/archive.md that was broken).
 """
 
 from __future__ import annotations

@@ -48,7 +48,7 @@ def test_json_has_the_contract_keys_and_leaves_the_file_alone(capsys, archive):
     rows = json.loads(out)
     assert [r["clock"] for r in rows] == ["C01", "C02", "H01", "R01"]
     for r in rows:
-        # contract.md section 2: at least clock, verdict in {keep, watch, retire}, reasons
+        # the interface (docs/assessment.md, --json): at least clock, verdict in {keep, watch, retire}, reasons
         assert r["verdict"] in CONTRACT_VERDICTS
         assert r["reasons"] and all(isinstance(t, str) and t for t in r["reasons"])
         assert {"hdev", "adev", "noise", "frequency", "drift_per_day", "events", "weight",

@@ -28,7 +28,8 @@ def assessment(tmp_path_factory):
 def _bound(q1, q2, p0, t, flicker=0.0):
     # Cross-check: Zucca & Tavella 2005 (IEEE Trans. UFFC 52(2)) phase-variance growth of the
     # clock model from a state known with covariance P0, Var = [Phi(t) P0 Phi(t)^T]_11 + q1 t
-    # + q2 t^3 / 3 (domain.md h.3), written out here independently of holdover.py.
+    # + q2 t^3 / 3 (the 11 element of Phi P0 Phi^T + Q, our own derivation), written out here
+    # independently of holdover.py.
     row = np.array([1.0, t, 0.5 * t * t])[:p0.shape[0]]
     var = row @ p0 @ row + q1 * t + q2 * t ** 3 / 3 + (flicker * t) ** 2
     return K_95 * np.sqrt(var)

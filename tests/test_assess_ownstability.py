@@ -21,8 +21,8 @@ def _simulation(seed, days=40.0, clocks=CLOCKS):
 
 def test_three_clocks_reproduce_the_three_cornered_hat():
     # Cross-check: Gray & Allan 1974, sigma_A^2 = (s_AB + s_AC - s_BC) / 2 and cyclically
-    # (domain.md f.2), from the pair variances computed here independently; with three clocks
-    # the hat is exactly determined, so the inverse-variance weights cannot change it.
+    # (cyclic form re-derived here), from the pair variances computed here independently; with
+    # three clocks the hat is exactly determined, so the inverse-variance weights cannot change it.
     sim = _simulation(3, days=20.0, clocks=CLOCKS[:3])
     x = sim.phase_s
     m = [1, 4, 16]
@@ -35,8 +35,10 @@ def test_three_clocks_reproduce_the_three_cornered_hat():
 
 
 def test_hat_levels_match_the_simulated_clocks_within_their_intervals():
-    # Source: the simulator's truth -- each clock's typical levels (expected_hdev of its preset,
-    # domain.md c.4) -- separated with the N-cornered hat (Gray & Allan 1974; domain.md f.2).
+    # Source: the simulator's truth -- each clock's typical levels (expected_hdev of its preset;
+    # power-law constants of IEEE Std 1139-2008 and Riley, NIST SP 1065, recalled from memory and
+    # reproduced numerically) -- separated with the N-cornered hat (Gray & Allan 1974; the
+    # N-clock least-squares form derived here).
     # 10 seeded ensembles x 4 clocks x 3 averaging times.  At tau0 itself the simulated
     # discrete flicker and random-walk FM exceed the continuous formulas by up to 24 %, so the
     # check starts at 4 tau0 (where they agree within a few %).

@@ -19,7 +19,8 @@ def _series(rng, n, q1, q2, r, y0, d):
 def _gls(t, z, q1, q2, r):
     """Dense generalised least squares of z on (1, t, t^2/2) with the clock model's covariance
     Cov[x(s), x(t)] = q1 min + q2 min^2 (3 max - min) / 6 + r delta (white FM, random-walk FM,
-    white PM started at the first epoch; domain.md c.1)."""
+    white PM started at the first epoch; clock model of Zucca & Tavella 2005, IEEE Trans. UFFC
+    52, covariance derived here)."""
     ok = np.isfinite(z)
     tt = t[ok] - t[ok][0]
     lo, hi = np.minimum.outer(tt, tt), np.maximum.outer(tt, tt)

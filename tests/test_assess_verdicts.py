@@ -65,8 +65,9 @@ def test_ageing_clock_and_step_prone_clock_are_flagged(cesium_lab):
 
 def test_fitted_levels_match_the_simulated_clocks(cesium_lab):
     # Source: simulator truth, cesium_standard preset: white FM 1e-11 at 1 s (q1 = 1e-22 s),
-    # flicker floor 7e-14 (domain.md c.5).  Within 3 fitted standard uncertainties, and the
-    # judged Hadamard deviations within their 68 % intervals widened to 3 sigma.
+    # flicker floor 7e-14 (typical values from memory, ensemble/model/presets.py).  Within 3
+    # fitted standard uncertainties, and the judged Hadamard deviations within their 68 %
+    # intervals widened to 3 sigma.
     from ensemble.model.presets import expected_hdev
 
     a = assess_archive(cesium_lab)

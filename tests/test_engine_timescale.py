@@ -53,7 +53,7 @@ def test_identical_white_fm_clocks_average_to_one_over_sqrt_n():
 
 
 def test_scale_is_independent_of_the_measurement_reference():
-    # Analytic (domain.md d.8): clock - scale must not depend on which clock the comparisons
+    # Analytic (derived here): clock - scale must not depend on which clock the comparisons
     # were made against.  Re-expressing data against another clock moves the reference's
     # measurement noise into every channel, so the check uses noise-free comparisons (white PM
     # 1e-16 s, 1e-4 of a clock's hourly noise); the offsets then agree to 1 fs.
@@ -70,7 +70,7 @@ def test_scale_is_independent_of_the_measurement_reference():
 
 
 def test_continuity_when_a_clock_leaves_and_joins():
-    # Analytic (BTSE property, domain.md d.1): weight changes move the scale only by
+    # Analytic (BTSE property, derived here; docs/engine.md): weight changes move the scale only by
     # prediction errors; a clock leaving (gap) or joining must not step the scale by more than
     # the one-step prediction noise of the scale.
     sim = _white_fm_clocks(5, days=40.0, anomalies=[
@@ -94,9 +94,9 @@ def test_continuity_when_a_clock_leaves_and_joins():
     ("outlier", 40e-9, "size_s"), ("phase_step", 40e-9, "size_s"),
     ("frequency_step", 3e-12, "size")])
 def test_second_difference_signatures_are_classified(kind, size, key):
-    # Cross-check: the signatures of domain.md e.1 (outlier +a,-2a,+a; phase step +b,-b,0;
-    # frequency step 0,c tau,0 in the second differences) must be told apart and sized
-    # within 20 % (domain.md j.7 GLR outcomes).
+    # Cross-check: the second-difference signatures derived here (outlier +a,-2a,+a; phase step
+    # +b,-b,0; frequency step 0,c tau,0 in the second differences) must be told apart and sized
+    # within 20 % (the accuracy of our own seeded GLR checks).
     sim = _white_fm_clocks(4, days=20.0, anomalies=[
         {"kind": kind, "clock": "W2", "day": 12.0, key: size}])
     res = form_time_scale(sim.measurements(), _config_for(sim), steer=False)
@@ -108,7 +108,7 @@ def test_second_difference_signatures_are_classified(kind, size, key):
 
 
 def test_reference_phase_step_is_attributed_to_the_reference():
-    # Cross-check: domain.md e.4: a step of the reference shows in every channel; it must be
+    # Cross-check (analytic): a step of the reference shows in every channel; it must be
     # found in the reference itself, and the scale must not follow it.
     sim = _white_fm_clocks(5, days=20.0, anomalies=[
         {"kind": "phase_step", "clock": "W0", "day": 10.0, "size_s": 30e-9}])
@@ -120,8 +120,9 @@ def test_reference_phase_step_is_attributed_to_the_reference():
 
 
 def test_long_run_covariance_stays_symmetric_positive_definite():
-    # Numerical health (domain.md d.10): P symmetric, positive definite on the active states,
-    # bounded, finite, over two years of hourly steps with drift states and a reference change.
+    # Numerical health (Joseph form and symmetrisation, docs/engine.md): P symmetric, positive
+    # definite on the active states, bounded, finite, over two years of hourly steps with drift
+    # states and a reference change.
     sim = simulate(lab_scenario({"hydrogen_maser": 2, "cesium_standard": 2}, 730.0, seed=5,
                                 reference_changes=[{"day": 400.0, "clock": "H02"}]))
     meas = sim.measurements()

@@ -42,7 +42,7 @@ def test_cap_properties(raw, a):
 
 
 def test_self_inclusion_undoes_the_bias():
-    # Analytic (domain.md d.2): against an optimal scale, clock i shows sigma_i^2 (1 - w_i).
+    # Analytic (derived here): against an optimal scale, clock i shows sigma_i^2 (1 - w_i).
     var = np.array([1.0, 2.0, 4.0, 8.0])
     w_true = inverse_variance_weights(var, np.ones(4, bool))
     seen = var * (1 - w_true)

@@ -1,4 +1,4 @@
-"""Holdover time-error prediction and time to a budget (domain.md h.2-h.3)."""
+"""Holdover time-error prediction and time to a budget (derived here; docs/fitting.md)."""
 
 import numpy as np
 import pytest
@@ -36,7 +36,7 @@ def test_variance_growth_with_known_start(q3):
 
 
 def test_initial_covariance_terms_written_out():
-    # Cross-check: the expansion of [Phi P Phi^T]_11 printed in domain.md h.3,
+    # Cross-check: the expansion of [Phi P Phi^T]_11, our own derivation (docs/fitting.md),
     # Pxx + 2t Pxy + t^2 (Pyy + Pxd) + t^3 Pyd + t^4 Pdd / 4.
     rng = np.random.default_rng(4)
     a = rng.normal(size=(3, 3)) * np.array([1e-9, 1e-14, 1e-20])
@@ -52,7 +52,7 @@ def test_initial_covariance_terms_written_out():
 
 def test_variance_against_euler_simulation_of_the_sde():
     # Cross-check: seeded Euler-Maruyama simulation of dx = y dt + sqrt(q1) dW1,
-    # dy = d dt + sqrt(q2) dW2, dd = sqrt(q3) dW3 (domain.md c.1), 400 steps, 20 000 paths,
+    # dy = d dt + sqrt(q2) dW2, dd = sqrt(q3) dW3 (Zucca & Tavella 2005), 400 steps, 20 000 paths,
     # started from N(x0, P).  The sample variance of x(t) has a relative sampling error of
     # 1 %; 5 % allows that plus the O(dt) Euler bias.
     rng = np.random.default_rng(8)
@@ -72,25 +72,26 @@ def test_variance_against_euler_simulation_of_the_sde():
     assert np.mean(x) == pytest.approx(pred.time_error_s[0], abs=4 * pred.std_s[0] / np.sqrt(paths))
 
 
-# --- domain primer h.3 worked table -------------------------------------------------------------
+# --- worked holdover table (our derivation) -----------------------------------------------------
 
 HOLDOVER_T = np.array([0.1, 1.0, 10.0, 30.0]) * DAY_S
-# Cross-check: domain primer h.3 worked values (our derivation), state known at t = 0, k = 1
-# (1 sigma), RW FM level b at tau_1 converted with q2 = 3 b^2 / tau_1 (primer c.4).  Printed to
-# two significant digits (one for 9 ps), so the tolerance is half a unit of the last digit.
+# Cross-check: worked values of our own derivation (table in docs/fitting.md), state known at
+# t = 0, k = 1 (1 sigma), RW FM level b at tau_1 converted with q2 = 3 b^2 / tau_1 (from
+# AVAR = q2 tau / 3, derived here).  Printed to two significant digits (one for 9 ps), so the
+# tolerance is half a unit of the last digit.
 MASER = ClockNoise(q1_s=q1_from_white_fm(1e-13), q2_per_s=q2_from_random_walk_fm(1e-15, 10 * DAY_S))
 CESIUM = ClockNoise(q1_s=q1_from_white_fm(8.5e-12),
                     q2_per_s=q2_from_random_walk_fm(1e-14, 30 * DAY_S))
 
 
-def test_h3_maser_column():
+def test_holdover_table_maser_column():
     pred = predict_time_error([0, 0], ZERO2, MASER, HOLDOVER_T, k=1.0)
     printed = np.array([9 * PS, 40 * PS, 0.87 * NS, 4.5 * NS])
     half_unit = np.array([0.5 * PS, 0.5 * PS, 0.005 * NS, 0.05 * NS])
     assert np.all(np.abs(pred.std_s - printed) <= half_unit), pred.std_s
 
 
-def test_h3_extra_from_initial_frequency_error():
+def test_holdover_table_extra_from_initial_frequency_error():
     # The printed extra is the deterministic 1e-15 t (0.1 d: 8.64 ps, 30 d: 2.59 ns), i.e. a
     # known initial offset in the state, not an uncertainty added in quadrature (that reading
     # gives +3.4 ps, +55 ps, +0.36 ns, +0.69 ns and does not reproduce the table).
@@ -103,7 +104,7 @@ def test_h3_extra_from_initial_frequency_error():
     np.testing.assert_allclose(off.std_s, base.std_s, rtol=1e-15)
 
 
-def test_h3_cesium_column():
+def test_holdover_table_cesium_column():
     pred = predict_time_error([0, 0], ZERO2, CESIUM, HOLDOVER_T, k=1.0)
     printed = np.array([0.79 * NS, 2.5 * NS, 9.3 * NS, 29 * NS])
     half_unit = np.array([0.005 * NS, 0.05 * NS, 0.05 * NS, 0.5 * NS])
@@ -118,7 +119,8 @@ def test_two_and_three_state_agree_without_drift():
 
 
 def test_optional_terms_add_as_documented():
-    # Cross-check: primer h.2, flicker floor adds (sigma_floor t)^2; white PM adds r.
+    # Cross-check: rule x_rms ~ t sigma_y (recalled from memory): flicker floor adds
+    # (sigma_floor t)^2; white PM adds r.
     noise = ClockNoise(q1_s=1e-24, r_s2=1e-20)
     t = np.array([100.0, 1e4])
     base = predict_time_error([0, 0], ZERO2, noise, t).std_s ** 2

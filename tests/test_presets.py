@@ -25,8 +25,9 @@ def test_five_types_with_the_agreed_keys():
 
 def test_power_law_constants():
     # Cross-check: IEEE Std 1139-2008 and Riley SP 1065 (2008) power-law AVAR/HVAR constants,
-    # recalled (not read in the source) and reproduced in domain.md c.4 and j.5: FFM AVAR
-    # 1.386294 h_-1, FFM HVAR 1.124670 h_-1, RWFM AVAR 6.579736 h_-2 tau, RWFM HVAR half of it.
+    # recalled (not read in the source) and reproduced by our own computation (the FFM HVAR
+    # closed form identified numerically): FFM AVAR 1.386294 h_-1, FFM HVAR 1.124670 h_-1,
+    # RWFM AVAR 6.579736 h_-2 tau, RWFM HVAR half of it.
     assert FLICKER_FM_AVAR_FACTOR == pytest.approx(1.386294, abs=5e-7)
     assert FLICKER_FM_HVAR_FACTOR == pytest.approx(1.124670, abs=5e-7)
     assert RW_FM_AVAR_FACTOR == pytest.approx(6.579736, abs=5e-7)
@@ -51,9 +52,10 @@ def test_levels_are_reproduced_by_the_expected_deviation(key):
 
 @pytest.mark.parametrize("key", list(PRESETS))
 def test_h_coefficients_agree_with_the_kalman_model(key):
-    # Cross-check: two independent routes for the same variance.  Power-law route (domain.md
-    # c.4: h0/(2 tau) + (2 pi^2/3) h_-2 tau) against the clock-model route (c.3:
-    # q1/tau + q2 tau/3 with q1 = h0/2, q2 = 2 pi^2 h_-2, clockmodel.q_from_h), without flicker.
+    # Cross-check: two independent routes for the same variance.  Power-law route (IEEE Std
+    # 1139-2008, recalled: h0/(2 tau) + (2 pi^2/3) h_-2 tau) against the clock-model route
+    # (derived here: q1/tau + q2 tau/3 with q1 = h0/2, q2 = 2 pi^2 h_-2, clockmodel.q_from_h),
+    # without flicker.
     p = get_preset(key).with_levels(flicker_fm_adev=0.0)
     h = p.h_coefficients()
     q1, q2 = q_from_h(h[0], h[-2])
@@ -67,7 +69,7 @@ def test_h_coefficients_agree_with_the_kalman_model(key):
 
 
 def test_random_run_hadamard_term_agrees_with_the_kalman_model():
-    # Cross-check: HVAR of random-run FM, 11 q3 tau^3 / 120 (domain.md c.3, clockmodel), against
+    # Cross-check: HVAR of random-run FM, 11 q3 tau^3 / 120 (derived here, clockmodel), against
     # (11 pi^4 / 15) h_-4 tau^3 with h_-4 = q3 / (8 pi^4); and the level definition c at tau_c.
     p = get_preset("hydrogen_maser").with_levels(white_fm_adev_1s=0.0, flicker_fm_adev=0.0,
                                                  rw_fm_adev=0.0, rr_fm_hdev=3e-15,
@@ -77,13 +79,14 @@ def test_random_run_hadamard_term_agrees_with_the_kalman_model():
     np.testing.assert_allclose(hadamard_variance_from_h(p.h_coefficients(), TAUS),
                                hadamard_variance(noise, TAUS), rtol=1e-13)
     assert expected_hdev(p, 30 * DAY) == pytest.approx(3e-15, rel=1e-13)
-    # Random-run FM has no stationary AVAR (domain.md c.3 pitfall): left out of expected_adev.
+    # Random-run FM has no stationary AVAR (its AVAR grows with elapsed time, derived here):
+    # left out of expected_adev.
     np.testing.assert_array_equal(expected_adev(p, TAUS), 0.0)
 
 
 def test_white_pm_and_drift_terms():
     # Cross-check: discrete white PM AVAR 3 s_x^2/tau^2, HVAR 10 s_x^2/(3 tau^2); drift AVAR
-    # D^2 tau^2/2 and no HVAR (domain.md c.4, j.5).
+    # D^2 tau^2/2 and no HVAR (derived here).
     p = get_preset("cesium_standard").with_levels(white_fm_adev_1s=0.0, flicker_fm_adev=0.0,
                                                   rw_fm_adev=0.0)
     sx, d = 5e-12, 1e-18
@@ -101,7 +104,8 @@ def test_clock_noise_has_no_white_pm_unless_asked():
 
 
 def test_typical_levels_lie_in_the_typical_ranges():
-    # Source: domain.md c.5 (typical values for generic types, not any data sheet).
+    # Typical values for generic types, not any data sheet: common practice with no single
+    # source (partly from memory, partly from published descriptions of generic types).
     m, c, hp, rb, cs = (get_preset(k) for k in PRESETS)
     assert 1e-13 <= expected_adev(m, 1.0) <= 2e-13                        # 1-2e-13 at 1 s
     assert 1e-15 <= expected_adev(m, 1e3) <= 4e-15                        # ~3e-15 at 1e3-1e4 s
@@ -122,8 +126,8 @@ def test_typical_levels_lie_in_the_typical_ranges():
 
 @pytest.mark.parametrize("tau", [1.0, 3600.0, DAY])
 def test_types_are_ordered_by_stability(tau):
-    # Source: domain.md c.5, the order of the typical levels (maser < high-performance cesium <
-    # standard cesium < rubidium < chip-scale) at 1 s, 1 h and 1 d.
+    # Typical levels (common practice, no single source), in order (maser < high-performance
+    # cesium < standard cesium < rubidium < chip-scale) at 1 s, 1 h and 1 d.
     adev = [float(expected_adev(k, tau)) for k in PRESETS]
     order = [adev[0], adev[2], adev[1], adev[3], adev[4]]
     assert order == sorted(order)

@@ -117,7 +117,8 @@ def test_scale_estimate_is_the_weighted_sum(rng):
     for k in range(st.tau_s.size):
         want = np.sum(w[0] ** 2 * np.maximum(st.variance[:, k], 0.0))
         want_sd = np.sqrt(np.sum((w[0] ** 2 * st.variance_sd[:, k]) ** 2))
-        # Cross-check: sigma_scale^2 = sum_j w_j^2 sigma_j^2 for independent clocks (primer f)
+        # Cross-check: sigma_scale^2 = sum_j w_j^2 sigma_j^2 for independent clocks (variance
+        # of a weighted sum of independent variables)
         if want > want_sd:
             assert st.scale_deviation[k] ** 2 == pytest.approx(want, rel=1e-12)
         else:
@@ -128,10 +129,10 @@ def test_scale_estimate_is_the_weighted_sum(rng):
 def test_two_quiet_clocks_among_noisy_ones_are_bounded_by_their_pair(rng):
     # Two equal quiet clocks beside three noisy ones: the hat cannot split the quiet pair, so
     # each is shown as an upper bound no higher than the pair's own deviation (sigma_i^2 <=
-    # sigma_ij^2 for independent clocks, primer f.2), and the scale of the two at 0.5 / 0.5
-    # uses half the pair variance each.  Analytic cross-check: for two equal white-FM clocks
-    # the true scale variance is 0.25 (s^2 + s^2) = Var(a - b) / 4, exactly what the working
-    # values give.
+    # sigma_ij^2 for independent clocks, since sigma_j^2 >= 0), and the scale of the two at
+    # 0.5 / 0.5 uses half the pair variance each.  Analytic cross-check: for two equal white-FM
+    # clocks the true scale variance is 0.25 (s^2 + s^2) = Var(a - b) / 4, exactly what the
+    # working values give.
     tau0 = 3600.0
     levels = (1e-15, 1e-15, 1e-13, 2e-13, 4e-13)
     x = white_fm_clocks(rng, levels, 4000, tau0)

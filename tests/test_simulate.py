@@ -72,10 +72,11 @@ def test_same_scenario_same_bytes_other_seed_other_noise(tmp_path):
 
 
 def test_injected_signatures_at_their_epochs():
-    # Source: domain.md e.1, second-difference signatures of an outlier (+a, -2a, +a), a phase
-    # step (+b, -b, 0) and a frequency step (0, c tau, 0) at k0 - 1, k0, k0 + 1; a drift change D
-    # gives (0, D tau^2 / 2, D tau^2).  The runs with and without the anomalies share every
-    # random stream, so their difference is the injected signal alone (round-off tolerance).
+    # Source: analytic second-difference signatures (derived here) of an outlier (+a, -2a, +a),
+    # a phase step (+b, -b, 0) and a frequency step (0, c tau, 0) at k0 - 1, k0, k0 + 1; a drift
+    # change D gives (0, D tau^2 / 2, D tau^2).  The runs with and without the anomalies share
+    # every random stream, so their difference is the injected signal alone (round-off
+    # tolerance).
     tau, a, b, c, d = 3600.0, 5e-9, 2e-9, 1e-13, 2e-15 / DAY
     anomalies = [
         {"kind": "outlier", "clock": "Cs1", "day": 2.0, "size_s": a},

@@ -45,7 +45,7 @@ def test_json_output_on_the_handbook_set(capsys):
         assert CONTRACT_KEYS <= set(r) and set(r) <= CONTRACT_KEYS | {"alpha", "noise"}
         assert r["lo"] < r["deviation"] < r["hi"] and r["edf"] > 0
     # Cross-check: SP 1065 (2008) small set OADEV 91.22945, 85.95287; recalled, not read in the
-    # source, reproduced by computation (domain.md j.1)
+    # source, every digit reproduced by our own computation
     assert rows[0]["deviation"] == pytest.approx(91.22945, rel=1e-6)
     assert rows[1]["deviation"] == pytest.approx(85.95287, rel=1e-6)
     assert [r["n"] for r in rows] == [8, 6]

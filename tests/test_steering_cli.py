@@ -82,8 +82,9 @@ def test_archive_to_commands_in_hz(archive, tmp_path, capsys):
 
 
 def test_mjd_and_units():
-    # Cross-check: MJD 51544 = 2000-01-01 and MJD 60676 = 2025-01-01 (domain primer b);
-    # 1 ns/day = 1e-9/86400 = 1.1574e-14 (primer b), so 1e-15 = 0.0864 ns/day.
+    # Cross-check: MJD 51544 = 2000-01-01 and MJD 60676 = 2025-01-01 (MJD 0 = 1858-11-17; days
+    # counted here with datetime); 1 ns/day = 1e-9/86400 = 1.1574e-14 (arithmetic), so
+    # 1e-15 = 0.0864 ns/day.
     assert mjd_to_iso(51544.0) == "2000-01-01T00:00:00Z"
     assert mjd_to_iso(60676.5) == "2025-01-01T12:00:00Z"
     assert 1e-15 * unit_factor("ns/day", None) == pytest.approx(0.0864, rel=1e-12)

@@ -25,9 +25,10 @@ def _setup(days, master, steering, seed=11, reference=None, states=3):
 
 def test_maser_with_drift_converges_within_two_sigma_after_expected_time():
     # Expected time (analytic): the noise-free linear loop from the state at the first command,
-    # X_k = (Phi - B G)^k X_first (primer g.2), falls for good under 2 sigma of the measurement
-    # noise after k* commands.  The simulated loop (noise, estimation, drift) must be inside
-    # 2 sigma from k* plus one time constant on, and never exceed the limits.
+    # X_k = (Phi - B G)^k X_first (derived here, docs/steering.md), falls for good under 2 sigma
+    # of the measurement noise after k* commands.  The simulated loop (noise, estimation,
+    # drift) must be inside 2 sigma from k* plus one time constant on, and never exceed the
+    # limits.
     # Regression: single seeded realisation; the margin of one time constant covers the
     # estimator's start-up and its residual error.
     T_d = 8.0

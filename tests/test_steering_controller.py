@@ -111,8 +111,9 @@ def test_constant_drift_removed_at_command_epochs():
 
 
 def test_prediction_and_uncertainty_match_clock_model():
-    # Cross-check: predicted phase error and its variance at the next command (primer h.3),
-    # recomputed with matrices: h P h^T + Q(h)[0, 0] from ensemble.model.process_noise.
+    # Cross-check: predicted phase error and its variance at the next command (derived here,
+    # [Phi P Phi^T + Q]_11 of the clock model), recomputed with matrices: h P h^T + Q(h)[0, 0]
+    # from ensemble.model.process_noise.
     noise = ClockNoise(q1_s=1e-26, q2_per_s=1e-35, q3_per_s3=1e-48)
     settings = SteeringSettings(anchor="time-of-day", time_of_day_h=0.0, settle_d=0.0)
     ctl = SteeringController(settings, noise=noise)

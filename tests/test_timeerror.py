@@ -1,4 +1,4 @@
-"""TIE, TIE rms and MTIE (ITU-T G.810 Appendix II definitions, domain.md h.1)."""
+"""TIE, TIE rms and MTIE (ITU-T G.810 Appendix II definitions, recalled from memory)."""
 
 import numpy as np
 import pytest
@@ -21,7 +21,7 @@ def brute_mtie(x, n):
 
 
 def test_constant_frequency_offset():
-    # Cross-check: analytic, x = y0 t gives MTIE = |y0| tau and TIE = y0 tau (domain.md j.7).
+    # Cross-check: analytic, x = y0 t gives MTIE = |y0| tau and TIE = y0 tau (derived here).
     y0, tau0 = -3.2e-12, 10.0
     x = y0 * tau0 * np.arange(5000)
     res = mtie(x, tau0, [1, 7, 64, 4999])
@@ -38,7 +38,7 @@ def test_constant_frequency_offset():
 @pytest.mark.parametrize("n", [1, 100, 1000])
 def test_quadratic_phase(n):
     # Cross-check: analytic, x = D t^2/2 over a record of length T gives MTIE = D tau (T - tau/2)
-    # (domain.md j.7, checked there at n = 1, 100, 1000 on 10 001 points).
+    # (our own derivation, checked numerically at n = 1, 100, 1000 on 10 001 points).
     d, tau0 = 2e-21, 1.0
     t = np.arange(10001) * tau0
     res = mtie(0.5 * d * t * t, tau0, n)
@@ -49,7 +49,7 @@ def test_quadratic_phase(n):
 @pytest.mark.parametrize("n", [2, 20, 50, 100, 200, 300, 1000, 3999])
 def test_sinusoid(n):
     # Cross-check: analytic, x = A sin(2 pi f t) gives MTIE = 2A sin(pi f tau) for
-    # tau <= 1/(2f) and 2A beyond (domain.md j.7).  Period 400 samples, even n: the optimal
+    # tau <= 1/(2f) and 2A beyond (derived here).  Period 400 samples, even n: the optimal
     # window (centred on a zero crossing) and the extremes fall on samples.
     a, period = 5 * NS, 400.0
     t = np.arange(4000.0)
@@ -62,7 +62,7 @@ def test_sinusoid(n):
 @pytest.mark.parametrize("step", [7 * NS, -2 * NS])
 def test_phase_step(step):
     # Cross-check: analytic, one phase step A gives |A| for every window containing it
-    # (domain.md j.7); a window not containing it has range 0.
+    # (derived here); a window not containing it has range 0.
     x = np.zeros(101)
     x[60:] = step
     res = mtie(x, 1.0, octave_window_lengths(x.size))
@@ -83,7 +83,8 @@ def test_phase_step(step):
 
 @pytest.mark.parametrize("n_samples", [2, 3, 8, 31, 257])
 def test_mtie_equals_brute_force_on_random_data(n_samples):
-    # Cross-check: brute-force definition (domain.md h.1) on seeded random data with gaps.
+    # Cross-check: brute-force definition (ITU-T G.810, brute_mtie above) on seeded random data
+    # with gaps.
     rng = np.random.default_rng(n_samples)
     x = np.cumsum(rng.normal(size=n_samples)) * NS
     if n_samples > 5:

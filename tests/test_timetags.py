@@ -13,7 +13,8 @@ from ensemble.errors import InputError
 from ensemble.io import sampling as sp
 from ensemble.io import timetags as tt
 
-# Cross-check: MJD = JD - 2 400 000.5, MJD 0 = 1858-11-17 (domain.md b)
+# Cross-check: MJD = JD - 2 400 000.5, MJD 0 = 1858-11-17 (the usual definition of the Modified
+# Julian Date; common practice, no source cited here)
 MJD0 = dt.date(1858, 11, 17)
 
 
@@ -30,7 +31,7 @@ def test_leap_table_is_consistent():
     assert tt.LEAP_SECONDS[0] == (mjd_of(1972, 1, 1), 10)
     assert np.all(np.diff(values) == 1)
     assert np.all(np.diff(days) > 0)
-    # Cross-check: 37 s from 2017-01-01 (domain.md b, from memory), = 10 s + 27 steps of the table
+    # Cross-check: 37 s from 2017-01-01 (from memory), = 10 s + 27 steps of the table
     assert tt.LEAP_SECONDS[-1] == (mjd_of(2017, 1, 1), 37) == (57754, 37)
     assert values[0] + (len(values) - 1) == 37
     # Cross-check: leap seconds are inserted at the end of June or December (Bulletin C practice)
@@ -75,13 +76,14 @@ def test_mjd_from_calendar_against_datetime(rng):
 
 
 def test_known_mjds():
-    # Cross-check: domain.md b, MJDs [D]: 1970-01-01, GPS epoch, 1997-10-01, 2000-01-01, 2025-01-01
+    # Cross-check: MJDs derived here by our own calendar arithmetic: 1970-01-01, GPS epoch,
+    # 1997-10-01, 2000-01-01, 2025-01-01
     got = tt.mjd_from_calendar([1970, 1980, 1997, 2000, 2025], [1, 1, 10, 1, 1], [1, 6, 1, 1, 1])
     assert got.tolist() == [40587, 44244, 50722, 51544, 60676]
 
 
 def test_format_iso_utc():
-    # Cross-check: 60676.5 = 2025-01-01 12:00 (domain.md b: MJD 60676 = 2025-01-01)
+    # Cross-check: 60676.5 = 2025-01-01 12:00 (MJD 60676 = 2025-01-01, test_known_mjds)
     assert tt.format_iso_utc(60676.5) == "2025-01-01T12:00:00Z"
     assert tt.format_iso_utc(60676.541667) == "2025-01-01T13:00:00Z"
     assert tt.format_iso_utc(60676.0 + 1.5 / 86400, 3) == "2025-01-01T00:00:01.500Z"

@@ -11,7 +11,8 @@ from ensemble.stability import frequency_to_phase, oadev, totdev
 
 
 def _totdev_reference(x, tau0, m):
-    """Direct definition (domain.md j.3): numpy odd reflection, explicit loop over centres."""
+    """Direct definition (Howe's total variance as in Riley, NIST SP 1065, 2008; the reflection
+    rule of docs/stability.md): numpy odd reflection, explicit loop over centres."""
     x = np.asarray(x, dtype=float)
     n = x.size
     j = np.arange(1, n - 1)
@@ -31,7 +32,7 @@ def _totdev_reference(x, tau0, m):
 
 
 def test_equals_oadev_at_m1():
-    # Cross-check: TOTDEV = OADEV at m = 1 (Howe's definition; domain.md j.3)
+    # Cross-check: TOTDEV = OADEV at m = 1 (follows from Howe's definition; derived here)
     rng = np.random.default_rng(21)
     y = rng.standard_normal(257)
     for data, v in (("frequency", y), ("phase", np.cumsum(y))):
@@ -73,9 +74,9 @@ def test_missing_first_value_removes_the_reflected_terms(m):
 
 
 def test_nearly_unbiased_for_white_fm():
-    # Cross-check: the total variance has no bias for white FM (Howe; domain.md j.3), here up
-    # to O(1/N): exact expectation for unit white frequency, E[AVAR] = 1/m, computed by applying
-    # the estimator to each column of the random-walk covariance factor
+    # Cross-check: the total variance has no bias for white FM (Howe, recalled from memory),
+    # here up to O(1/N): exact expectation for unit white frequency, E[AVAR] = 1/m, computed by
+    # applying the estimator to each column of the random-walk covariance factor
     n = 61
     lmat = np.tril(np.ones((n, n)))
     for m in (2, 5, 20, 30):

@@ -1,6 +1,6 @@
 """Internal: the archive layout in one place (datasets, units, descriptions, state codes, tables).
 
-Format version 1 of the HDF5 archive (contract section 3) plus the project's own additions
+Format version 1 of the HDF5 archive (docs/archive.md) plus the project's own additions
 (``/filter``, ``/state``, ``/provenance``, ``/assessment``).  The writer, the reader, the
 verifier, ``ensemble inspect`` and docs/archive.md all take names, dtypes, units and wording from
 here; nothing else spells a dataset path.
@@ -19,14 +19,14 @@ import numpy as np
 
 from ..units import SECONDS_PER_DAY
 
-#: Archive format version written by this software (contract section 3).
+#: Archive format version written by this software (docs/archive.md).
 FORMAT_VERSION = 1
 
 #: Units string of text fields and codes.
 NO_UNIT = "none"
 
 # ---------------------------------------------------------------------------------------------
-# Standing of a clock in the ensemble: /scale/state codes (domain.md d.2 plus ``monitor``).
+# Standing of a clock in the ensemble: /scale/state codes (our own; listed in docs/archive.md).
 ABSENT = 0
 PROBATION = 1
 ACTIVE = 2
@@ -62,7 +62,7 @@ EVENT_KINDS = ("outlier", "phase_step", "frequency_step", "drift_change")
 REFERENCE_KIND_PREFIX = "reference_"
 _KIND_RE = re.compile(r"^[a-z][a-z0-9_]*$")
 
-#: Clock identifier rule (contract section 1): 1 to 32 characters from A-Z a-z 0-9 _ . -
+#: Clock identifier rule (docs/input.md): 1 to 32 characters from A-Z a-z 0-9 _ . -
 CLOCK_NAME_RE = re.compile(r"^[A-Za-z0-9_.\-]{1,32}$")
 #: Storage size of a clock identifier [bytes].
 CLOCK_NAME_BYTES = 32
@@ -305,7 +305,7 @@ RESERVED_PATHS = ("/epochs", "/clocks", "/scale", "/events", "/steering", "/prov
 #: Attribute names with a fixed meaning on every object (never state keys).
 RESERVED_ATTRS = ("units", "description", "dimensions", "codes", "field_descriptions")
 
-#: Tolerance of "each weight row sums to 1" (contract section 3), checked on write and verify.
+#: Tolerance of "each weight row sums to 1" (docs/archive.md), checked on write and verify.
 WEIGHT_SUM_TOL = 1e-12
 
 #: Largest JSON text stored as one attribute [bytes] (HDF5 object-header message limit 64 KiB).

@@ -1,4 +1,4 @@
-"""Checking an archive against format version 1 (contract section 3 and docs/archive.md).
+"""Checking an archive against format version 1 (docs/archive.md).
 
 :func:`verify_archive` lists every problem it finds (an empty list means conformant);
 :func:`check_readable` is the smaller gate the reader and the appending writer pass a file

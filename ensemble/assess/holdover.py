@@ -1,7 +1,7 @@
 """Holdover: predicted time error of a free-running clock and the time until a budget is used.
 
 From a state estimate (x0 [s], y0 [1], d0 [1/s]) with covariance P0 at the start of holdover,
-the clock model predicts (domain primer h.2, h.3; Zucca & Tavella 2005 for Q)::
+the clock model predicts (derived here; Zucca & Tavella 2005 for the clock model and Q)::
 
     TE(t)      = x0 + y0 t + d0 t^2 / 2
     Var[TE(t)] = [Phi(t) P0 Phi(t)^T + Q(t)]_11
@@ -9,8 +9,8 @@ the clock model predicts (domain primer h.2, h.3; Zucca & Tavella 2005 for Q)::
                  + q1 t + q2 t^3 / 3 + q3 t^5 / 20   (+ (sigma_floor t)^2) (+ r)
 
 The optional flicker-FM term uses the rule x_rms(t) ~ t sigma_y(t) with the flicker floor
-sigma_floor (primer h.2, an approximation: flicker FM has no finite-state model); the optional
-r is the white PM of the output measurement.
+sigma_floor (a rule of practice recalled from memory, no source; an approximation: flicker FM
+has no finite-state model); the optional r is the white PM of the output measurement.
 
 The bound reported is |TE(t)| + k sigma(t); systematic allowances (temperature, magnetic
 field, cavity pulling) are not modelled and must be added separately.
@@ -167,11 +167,11 @@ def holdover_time(state, covariance, noise: ClockNoise, budgets_s, *, k: float =
 
 def _te_and_variance(x0, p0, noise: ClockNoise, t, flicker_adev, include_output_noise):
     n = x0.size
-    # First row of Phi(t): [1, t, t^2/2] (primer c.2).
+    # First row of Phi(t): [1, t, t^2/2] (ensemble.model.clockmodel).
     row = np.stack([np.ones_like(t), t, 0.5 * t * t][:n], axis=-1)
     te = row @ x0
     var = np.einsum("ti,ij,tj->t", row, p0, row)
-    # Q11(t) = q1 t + q2 t^3 / 3 + q3 t^5 / 20 (primer c.2).
+    # Q11(t) = q1 t + q2 t^3 / 3 + q3 t^5 / 20 (exact discretisation; ensemble.model.clockmodel).
     var = var + noise.q1_s * t + noise.q2_per_s * t ** 3 / 3.0 + noise.q3_per_s3 * t ** 5 / 20.0
     var = var + (flicker_adev * t) ** 2
     if include_output_noise:

@@ -2,9 +2,9 @@
 
 offset_i - offset_j = (clock i - scale) - (clock j - scale) = clock i - clock j, so the pair
 differences do not contain the scale at all.  For independent clocks the variance of a
-difference is the sum of the clocks' variances (domain primer f.2), and the N-cornered hat
-(:func:`ensemble.stability.hat.n_cornered_hat`; Gray & Allan 1974 for three clocks) separates
-them at each averaging time.
+difference is the sum of the clocks' variances, and the N-cornered hat
+(:func:`ensemble.stability.hat.n_cornered_hat`; Gray & Allan 1974 for three clocks, the
+least-squares form for N clocks derived here) separates them at each averaging time.
 
 Pairs are weighted by the inverse variance of their estimate, EDF / (2 S^2) (a chi-square
 variance estimate), in two passes: first with S the measured pair variance, then with S from
@@ -16,7 +16,7 @@ The EDF of each pair estimate is the Greenhall-Riley EDF (:func:`ensemble.stabil
 of the noise type identified on that pair difference at that averaging factor
 (:func:`ensemble.stability.identify_noise`).  The clock estimate's EDF is 2 v^2 / u^2 from its
 value v and propagated standard uncertainty u, and its confidence interval is the chi-square
-interval with that EDF (domain primer j.4).
+interval with that EDF (:mod:`ensemble.stability.confidence`).
 
 Resolution.  A clock is *resolved* at an averaging time when its estimate is positive and its
 uncertainty at most half of it (EDF >= 8).  Two quiet clocks among much noisier ones (two

@@ -86,7 +86,8 @@ class Holdover:
 
     The clock's present offset, frequency and drift relative to the scale are taken as known
     corrections, so the prediction is zero and the bound is k sigma of its error:
-    sigma^2(t) = [Phi(t) P0 Phi(t)^T + Q(t)]_11 + (flicker floor t)^2 (domain primer h.3),
+    sigma^2(t) = [Phi(t) P0 Phi(t)^T + Q(t)]_11 + (flicker floor t)^2 (derived here; see
+    :mod:`ensemble.assess.holdover`),
     P0 the covariance of the clock's state relative to the scale at the last epoch and Q its
     own noise (q1, q2 of :class:`NoiseLevels`).
 

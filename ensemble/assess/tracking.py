@@ -1,7 +1,7 @@
 """Internal: frequency offset, drift and end state of each clock relative to the scale, with
 noise-aware uncertainties.
 
-The offset series x_k = clock - scale is modelled as the clock model of domain primer c.1-c.2
+The offset series x_k = clock - scale is modelled as the clock model of Zucca & Tavella (2005)
 (phase, frequency, a constant drift) observed with white PM, with the noise levels fitted to the
 series itself (:func:`offset_noise`), and run through a Kalman filter from a diffuse start.  A
 Kalman filter with a constant drift state and a diffuse prior is generalised least squares of
@@ -101,7 +101,7 @@ def offset_noise(offset_s: np.ndarray, tau0_s: float, span_s: float) -> tuple:
     tuple of ClockNoise or None, length N
         r, q1 and an effective q2 per series: a fitted flicker floor h_-1 is carried by the
         random-walk FM level with the same Hadamard variance at a quarter of the span,
-        q2 += 6 x 1.124670 h_-1 / (span / 4) (primer c.4, c.6).  None where the series is too
+        q2 += 6 x 1.124670 h_-1 / (span / 4) (ensemble.model.presets).  None where the series is too
         short.
     """
     x = np.asarray(offset_s, dtype=float)

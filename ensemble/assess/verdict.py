@@ -4,8 +4,8 @@ evidence.
 Each rule looks at one kind of evidence and gives findings of level "retire", "watch" or
 "note" (information, for example the holdover figures).  The verdict is the most serious level
 found: retire if any rule says retire, else watch if any says watch, else keep.  The verdict is
-advisory (domain primer a.5: present evidence, not a judgement); every finding is a sentence
-naming its numbers and the threshold it was compared with, and the thresholds are the
+advisory (common practice, no source: present evidence, not a judgement); every finding is a
+sentence naming its numbers and the threshold it was compared with, and the thresholds are the
 ``[assessment]`` settings (docs/assessment.md lists every rule).
 """
 
@@ -23,7 +23,8 @@ from .records import ClockAssessment
 from .settings import AssessmentSettings
 
 _LEVELS = {"retire": 2, "watch": 1, "note": 0}
-#: Cesium types, whose ageing has a known cause worth naming (domain primer a.5).
+#: Cesium types, whose ageing has a known cause worth naming (cesium exhausted, multiplier worn:
+#: practitioners' accounts, no publication cited).
 _CESIUM = ("cesium_standard", "cesium_high_performance")
 
 

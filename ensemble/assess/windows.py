@@ -226,7 +226,8 @@ def _window_drifts(offset_s, tau0_s, layout, offset_noise, drift_state):
 
 def _white_fm(own, i: int, r_s2: float) -> tuple[float, float]:
     ok = own.resolved[i] & np.isfinite(own.variance[i])
-    # the channel's white PM, 10 r / (3 tau^2) (primer c.3), taken off before the fit
+    # the channel's white PM, 10 r / (3 tau^2) (derived here, as in
+    # ensemble.model.clockmodel.hadamard_variance), taken off before the fit
     rest = own.variance[i] - 10.0 * r_s2 / (3.0 * own.tau_s ** 2)
     ok &= rest > 0
     if ok.sum() < _MIN_FIT_POINTS:

@@ -2,7 +2,7 @@
 
 Two complementary tests run on each clock's prediction residual relative to the ensemble
 (the innovation of the clock minus the weighted mean innovation of the clean clocks, so that a
-fault localises to the clock that has it, the reference included; domain primer e.2):
+fault localises to the clock that has it, the reference included; derived here, see docs/engine.md):
 
 * **Hold and classify.**  A standardised residual beyond ``hold_sigma`` withholds the clock's
   measurements from the filter (its state is only predicted) and zeroes its weight.  The

@@ -19,12 +19,13 @@ products; S is factorised by Cholesky instead of inverted.  The result is the sa
 benchmark (``benchmarks/bench_engine.py``) measured it 2.3-2.5 x faster than filterpy's update at
 100 clocks and 1.2 x at 30, but 0.6-0.9 x (slower, call overhead) at 10 clocks.
 
-Frame.  The common phase, frequency and drift of all clocks are unobservable (domain primer d.4):
-after every update the state is re-referenced to the v-weighted mean clock,
-x -> A x, P -> A P A^T with A = (I - 1 v^T) (x) I_3 over the active clocks.  Because A commutes
-with Phi and H A = H, this projection is transparent: the estimated differences between clocks
-are exactly those of the unprojected filter, while P stays bounded.  The weights v choose which
-mean clock the frame follows (the time scale's long-term frequency reference).
+Frame.  The common phase, frequency and drift of all clocks are unobservable (Chaffee 1992;
+Breakiron 2001; Wright 2008): after every update the state is re-referenced to the v-weighted
+mean clock, x -> A x, P -> A P A^T with A = (I - 1 v^T) (x) I_3 over the active clocks.
+Because A commutes with Phi and H A = H, this projection is transparent: the estimated
+differences between clocks are exactly those of the unprojected filter, while P stays bounded.
+The weights v choose which mean clock the frame follows (the time scale's long-term frequency
+reference).
 """
 
 from __future__ import annotations
@@ -143,7 +144,7 @@ class EnsembleFilter:
 
     # ------------------------------------------------------------------------------- predict
     def predict(self, dt_s: float) -> None:
-        """Propagate state and covariance over dt with the exact Phi and Q (primer c.2).
+        """Propagate state and covariance over dt with the exact Phi and Q (model/clockmodel.py).
 
         Small ensembles use dense products with the whole-ensemble Phi and Q (cached per
         interval); larger ones apply Phi by row and column operations, O(n^2).

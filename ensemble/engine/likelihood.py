@@ -5,10 +5,10 @@ well but random-walk FM (and the flicker floor it must stand for) poorly: one hi
 longest averaging time can overstate q2 tenfold, and a filter with too large a q2 follows every
 frequency step as if it were wander.  The Kalman-filter likelihood of each clock's difference to
 the quietest clock (Tryon & Jones 1983, "estimation of parameters in models for cesium beam
-atomic clocks": parameters by maximum likelihood from the innovations; domain primer f.3) picks
-the q2 that makes the innovations white at the sampling interval, which is the effective level
-the filter needs.  The profile over q2 (q1 and r held at the hat's values) is evaluated on a
-logarithmic grid for every clock at once.
+atomic clocks", J. Res. NBS 88(1), 3-16: parameters by maximum likelihood from the
+innovations) picks the q2 that makes the innovations white at the sampling interval, which is
+the effective level the filter needs.  The profile over q2 (q1 and r held at the hat's values)
+is evaluated on a logarithmic grid for every clock at once.
 """
 
 from __future__ import annotations

@@ -8,7 +8,7 @@ For clocks whose noise levels the configuration does not give:
    then a non-negative weighted fit of (r, q1, q2) to each clock's curve
    (:func:`ensemble.stability.fit.fit_noise`).  Fitted over the averaging times where the
    filter runs, the q's are *effective* levels that also carry the flicker FM the model cannot
-   represent (primer c.6, f.1);
+   represent (it needs extra Gauss-Markov states; Davis, Greenhall & Stacey 2005);
 3. initial phase, frequency and drift of each clock relative to the first epoch's reference,
    from a polynomial fit over the same stretch, with covariances from the noise levels.
 

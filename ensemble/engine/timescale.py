@@ -2,7 +2,7 @@
 
 One Kalman filter over all member clocks (:mod:`.kalman`) supplies each clock's frequency and
 drift; the basic time scale equation (BTSE) forms the scale's phase from the measured
-differences with stability weights (domain primer d.1, d.6: "Kalman plus weights").
+differences with stability weights (Greenhall 2001, "Kalman plus weights", Proc. 33rd PTTI).
 
 Frequency split.  A single set of weights is optimal at one averaging time only.  Two sets
 act in two bands here:
@@ -232,7 +232,8 @@ class TimeScaleEngine:
             return
         tau = self.cfg.frame_interval_s
         q = self.q_si
-        # Hadamard variance of each clock's model at the frame interval (primer c.3)
+        # Hadamard variance of each clock's model at the frame interval (as in
+        # ensemble.model.clockmodel.hadamard_variance)
         hvar = (10.0 * self.r_si / (3.0 * tau * tau) + q[:, 0] / tau + q[:, 1] * tau / 6.0
                 + 11.0 * q[:, 2] * tau ** 3 / 120.0)
         hvar = np.where(np.isfinite(self.frame_hvar), np.maximum(self.frame_hvar, hvar), hvar)
@@ -715,7 +716,7 @@ class TimeScaleEngine:
         """Re-scale each clock's noise levels so that its residuals have unit variance.
 
         The mean squared standardised residual of a correct model is 1 (the innovation check of
-        Tryon & Jones 1983; primer e.2: a steady excess means the q's are too small).  When a
+        Tryon & Jones 1983; a steady excess means the q's are too small).  When a
         clock's running mean departs from 1 by more than three standard errors, q1 and q2 are
         scaled by that ratio, limited to ``tracking_max_change`` per re-estimation, so a clock
         whose noise grows loses weight gradually.

@@ -2,11 +2,11 @@
 
 * Inverse-variance weights w_i = (1/sigma_i^2) / sum_j (1/sigma_j^2): the minimum-variance
   combination of independent clocks (Tavella & Thomas 1991, Metrologia 28, 57-63).
-* A relative cap w_max = A / N applied by iterative water-filling (domain primer d.2): weights
+* A relative cap w_max = A / N applied by iterative water-filling (our own procedure): weights
   above the cap are set to it and the remaining weight is shared among the others in proportion
   to their uncapped weights, repeated until none exceeds the cap.
 * The self-inclusion correction: a clock compared with a scale that contains it shows the
-  variance sigma_i^2 (1 - w_i) instead of sigma_i^2 (primer d.2, for w_i = sigma_E^2 / sigma_i^2);
+  variance sigma_i^2 (1 - w_i) instead of sigma_i^2 (derived here, for w_i = sigma_E^2 / sigma_i^2);
   estimate sigma_i^2 = eps_i^2 / (1 - w_i) and iterate.
 """
 

@@ -1,6 +1,6 @@
 """Measurement CSV readers: long and wide form -> :class:`~ensemble.io.measurements.Measurements`.
 
-Long form (contract section 1): a header naming ``clock``, ``reference``, ``phase`` and one of
+Long form (docs/input.md): a header naming ``clock``, ``reference``, ``phase`` and one of
 ``mjd`` / ``time``, in any order; one row per (epoch, clock).  Wide form: ``mjd`` or ``time``
 first, then one column per clock; the reference is named by the caller (``--reference``) and
 its own column is absent or zero.  ``phase`` is clock - reference in seconds.
@@ -31,7 +31,7 @@ from .summary import summarize
 __all__ = ["read_measurements", "parse_measurements", "summarize", "CLOCK_ID_RULE",
            "MAX_ABS_PHASE_S", "LONG_GAP_S"]
 
-#: Clock identifiers: 1 to 32 characters from A-Z a-z 0-9 _ . - (contract section 1).
+#: Clock identifiers: 1 to 32 characters from A-Z a-z 0-9 _ . - (docs/input.md).
 CLOCK_ID_RULE = "1 to 32 characters from A-Z a-z 0-9 _ . -"
 _CLOCK_ID = re.compile(r"[A-Za-z0-9_.\-]{1,32}")
 #: Largest accepted |clock - reference|: more is almost surely a unit error [s].

@@ -1,8 +1,8 @@
 """The sampling grid (internal): tau0 from the data, each epoch's slot, exact elapsed time.
 
 Epoch tags are UTC labels (:mod:`ensemble.io.timetags`).  Intervals come from the nominal
-grid plus the leap seconds in between, never from float differences of MJD (domain primer,
-section b):
+grid plus the leap seconds in between, never from float differences of MJD (our own rule,
+explained in docs/input.md under "Leap seconds" and "MJD labels"):
 
     elapsed_s = k * tau0_s + (TAI-UTC(t) - TAI-UTC(t0))
 

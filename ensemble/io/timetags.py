@@ -1,7 +1,8 @@
 """Time tags (internal): MJD and ISO-8601 UTC parsing, the leap-second table, intervals.
 
 Epoch tags are UTC labels.  Intervals between epochs come from the nominal sampling grid plus
-the leap seconds in between, never from float differences of MJD (domain primer, section b):
+the leap seconds in between, never from float differences of MJD (our own rule, explained in
+docs/input.md under "Leap seconds" and "MJD labels"):
 
     elapsed_s = k * tau0_s + (TAI-UTC(t) - TAI-UTC(t0))
 
@@ -37,7 +38,7 @@ _DAY_S = 86400.0
 # UTC on the last day of June or December), written down from memory, not copied from a file.
 # Self-consistency checks (tests/test_timetags.py): TAI - UTC was set to exactly 10 s at
 # 1972-01-01, every later step is +1 s, and the 27 steps give 37 s from 2017-01-01
-# (MJD 57754), the value quoted for the present (domain primer, section b).
+# (MJD 57754), the present value (IERS Bulletin C; recalled from memory, like the table).
 _LEAP_TABLE_DATES = (
     ("1972-01-01", 10), ("1972-07-01", 11), ("1973-01-01", 12), ("1974-01-01", 13),
     ("1975-01-01", 14), ("1976-01-01", 15), ("1977-01-01", 16), ("1978-01-01", 17),

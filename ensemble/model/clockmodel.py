@@ -1,6 +1,7 @@
 """The three-state stochastic clock model: phase, frequency and frequency drift.
 
-Continuous model (Zucca & Tavella 2005, IEEE Trans. UFFC 52(2), 289-296; domain primer c.1)::
+Continuous model (Zucca & Tavella 2005, IEEE Trans. UFFC 52(2), 289-296; the equations
+re-derived here)::
 
     dx = y dt + sqrt(q1) dW1        x: phase (time deviation) [s]
     dy = d dt + sqrt(q2) dW2        y: fractional frequency [1]
@@ -8,7 +9,8 @@ Continuous model (Zucca & Tavella 2005, IEEE Trans. UFFC 52(2), 289-296; domain 
 
 with independent Wiener processes.  q1 [s] is the white-FM level (sigma_y^2(tau) = q1/tau),
 q2 [1/s] random-walk FM, q3 [1/s^3] random-run FM.  White PM is measurement noise of variance
-r [s^2] per sample: z = x + v.  Exact discretisation over any interval tau (primer c.2)::
+r [s^2] per sample: z = x + v.  Exact discretisation over any interval tau (derived here; equal
+to the Van Loan matrix-exponential construction, tests/test_clockmodel.py)::
 
     Phi(tau) = [[1, tau, tau^2/2], [0, 1, tau], [0, 0, 1]]
     Q(tau)   = integral_0^tau Phi(s) diag(q1, q2, q3) Phi(s)^T ds
@@ -80,7 +82,7 @@ def transition_matrix(tau_s: float, n_states: int = 3) -> np.ndarray:
 
 
 def process_noise(noise: ClockNoise, tau_s: float, n_states: int = 3) -> np.ndarray:
-    """Exact process-noise covariance Q(tau) of one clock (primer c.2, closed form).
+    """Exact process-noise covariance Q(tau) of one clock (closed form of the module docstring).
 
     Parameters
     ----------
@@ -136,7 +138,7 @@ def process_noise_blocks(q1_s: np.ndarray, q2_per_s: np.ndarray, q3_per_s3: np.n
 
 def allan_variance(noise: ClockNoise, tau_s: np.ndarray | float,
                    drift_per_s: float = 0.0) -> np.ndarray:
-    """Allan variance of the model at averaging time tau (primer c.3), without random-run FM.
+    """Allan variance of the model at averaging time tau (derived here), without random-run FM.
 
     sigma_y^2(tau) = 3 r / tau^2 + q1 / tau + q2 tau / 3 + D^2 tau^2 / 2.
 
@@ -162,7 +164,7 @@ def allan_variance(noise: ClockNoise, tau_s: np.ndarray | float,
 
 
 def hadamard_variance(noise: ClockNoise, tau_s: np.ndarray | float) -> np.ndarray:
-    """Hadamard variance of the model at averaging time tau (primer c.3, f.1).
+    """Hadamard variance of the model at averaging time tau (derived here by kernel integration).
 
     H sigma_y^2(tau) = 10 r / (3 tau^2) + q1 / tau + q2 tau / 6 + 11 q3 tau^3 / 120.
     A linear drift does not contribute.
@@ -199,7 +201,7 @@ def q3_from_random_run_fm(hdev: float, tau_s: float) -> float:
 
 
 def q_from_h(h0: float = 0.0, h_minus2: float = 0.0) -> tuple[float, float]:
-    """Power-law coefficients to diffusion coefficients (primer c.4): q1 = h0/2, q2 = 2 pi^2 h_-2.
+    """Power-law coefficients to diffusion coefficients (derived here): q1 = h0/2, q2 = 2 pi^2 h_-2.
 
     Parameters
     ----------

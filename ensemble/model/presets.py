@@ -15,24 +15,29 @@ White PM is not a clock property: it belongs to the measurement system (``white_
 below, the ``[measurement]`` table of a simulator scenario).
 
 The presets map to the power-law spectrum S_y(f) = sum h_alpha f^alpha (IEEE Std 1139-2008;
-Riley, Handbook of Frequency Stability Analysis, NIST SP 1065, 2008; domain primer c.4)::
+Riley, Handbook of Frequency Stability Analysis, NIST SP 1065, 2008; the AVAR constants recalled
+from memory and reproduced by our own computation, the h_-4 line derived here)::
 
     h_0  = 2 a^2 * (1 s)                   AVAR_WFM  = h_0 / (2 tau)
     h_-1 = floor^2 / (2 ln 2)              AVAR_FFM  = 2 ln 2 h_-1
     h_-2 = 3 b^2 / (2 pi^2 tau_b)          AVAR_RWFM = (2 pi^2 / 3) h_-2 tau
     h_-4 = q3 / (8 pi^4)                   HVAR_RRFM = (11 pi^4 / 15) h_-4 tau^3
 
-and to the Kalman clock model (primer c.4): q1 = h_0 / 2 = a^2 [s], q2 = 2 pi^2 h_-2 = 3 b^2 /
-tau_b [1/s], q3 = 8 pi^4 h_-4 = 120 c^2 / (11 tau_c^3) [1/s^3].  The q3 <-> h_-4 relation is our
-own derivation: a drift performing a random walk of diffusion q3 has the one-sided spectrum
-S_y(f) = 2 q3 / (2 pi f)^4; with HVAR = 11 q3 tau^3 / 120 (primer c.3) it gives the HVAR constant
-above.  Flicker FM has no finite-state Markov form (primer c.6), so :meth:`ClockPreset.clock_noise`
-leaves it out; callers that need effective q's near their update interval must fit them
-(primer f.1).
+and to the Kalman clock model (our own mapping, :func:`~ensemble.model.clockmodel.q_from_h`):
+q1 = h_0 / 2 = a^2 [s], q2 = 2 pi^2 h_-2 = 3 b^2 / tau_b [1/s], q3 = 8 pi^4 h_-4 = 120 c^2 /
+(11 tau_c^3) [1/s^3].  The q3 <-> h_-4 relation is our own derivation: a drift performing a
+random walk of diffusion q3 has the one-sided spectrum S_y(f) = 2 q3 / (2 pi f)^4; with
+HVAR = 11 q3 tau^3 / 120 (:func:`~ensemble.model.clockmodel.hadamard_variance`) it gives the
+HVAR constant above.  Flicker FM has no finite-state Markov form (it can only be approximated by
+Gauss-Markov states: Davis, Greenhall & Stacey 2005, Metrologia), so
+:meth:`ClockPreset.clock_noise` leaves it out; callers that need effective q's near their update
+interval must fit them (:mod:`ensemble.stability.fit`).
 
-Values: **typical values** for generic clock types, read from the domain primer c.5 ("typical
-values, not any data sheet"); where c.5 gives no value the comment says where the number comes
-from (the worked examples of primer h.3, or an assumption of common practice with no source).
+Values: **typical values** for generic clock types, not any data sheet.  The comment beside each
+value in :data:`PRESETS` says where it comes from: a typical level found in published material
+(the individual sources were not recorded), a level recalled from memory (not confirmed in a
+source), the worked holdover examples of tests/test_holdover.py (our own choice, no source), or
+an assumption of common practice with no source.
 """
 
 from __future__ import annotations
@@ -50,15 +55,19 @@ from .clockmodel import (ClockNoise, q1_from_white_fm, q2_from_random_walk_fm,
 #: Seconds per day [s/d].
 _DAY_S = 86400.0
 
-#: AVAR / h_-1 of flicker FM, 2 ln 2 (IEEE Std 1139-2008; SP 1065; primer c.4).
+#: AVAR / h_-1 of flicker FM, 2 ln 2 (IEEE Std 1139-2008; SP 1065; recalled, reproduced here).
 FLICKER_FM_AVAR_FACTOR = 2.0 * math.log(2.0)
-#: HVAR / h_-1 of flicker FM, 4 ln 2 - (3/2) ln 3 = 1.124670 (primer c.4, identified numerically).
+#: HVAR / h_-1 of flicker FM, 4 ln 2 - (3/2) ln 3 = 1.124670 (closed form identified numerically
+#: here; the value recalled from memory).
 FLICKER_FM_HVAR_FACTOR = 4.0 * math.log(2.0) - 1.5 * math.log(3.0)
-#: AVAR / (h_-2 tau) of random-walk FM, 2 pi^2 / 3 (IEEE Std 1139-2008; SP 1065; primer c.4).
+#: AVAR / (h_-2 tau) of random-walk FM, 2 pi^2 / 3 (IEEE Std 1139-2008; SP 1065; recalled,
+#: reproduced here).
 RW_FM_AVAR_FACTOR = 2.0 * math.pi ** 2 / 3.0
-#: HVAR / (h_-2 tau) of random-walk FM, pi^2 / 3 (half the AVAR factor, primer c.4).
+#: HVAR / (h_-2 tau) of random-walk FM, pi^2 / 3 (half the AVAR factor; recalled, reproduced
+#: here).
 RW_FM_HVAR_FACTOR = math.pi ** 2 / 3.0
-#: HVAR / (h_-4 tau^3) of random-run FM, 11 pi^4 / 15 (from primer c.3 and q3 = 8 pi^4 h_-4).
+#: HVAR / (h_-4 tau^3) of random-run FM, 11 pi^4 / 15 (derived here from HVAR = 11 q3 tau^3 / 120
+#: and q3 = 8 pi^4 h_-4).
 RR_FM_HVAR_FACTOR = 11.0 * math.pi ** 4 / 15.0
 
 #: The level fields of a preset that a scenario may override (name -> unit).
@@ -146,7 +155,7 @@ class ClockPreset:
 
         Notes
         -----
-        From the level definitions and the power-law formulas (primer c.4):
+        From the level definitions and the power-law formulas (module docstring):
         h_0 = 2 a^2 (1 s), h_-1 = floor^2 / (2 ln 2), h_-2 = 3 b^2 / (2 pi^2 tau_b),
         h_-4 = q3 / (8 pi^4) with q3 = 120 c^2 / (11 tau_c^3).
         """
@@ -159,7 +168,7 @@ class ClockPreset:
         }
 
     def clock_noise(self, white_pm_s: float = 0.0) -> ClockNoise:
-        """The Kalman-model noise parameters of this type (primer c.1, c.4).
+        """The Kalman-model noise parameters of this type (mapping in the module docstring).
 
         Parameters
         ----------
@@ -195,7 +204,7 @@ class ClockPreset:
 
 def allan_variance_from_h(h: Mapping[int, float], tau_s, white_pm_s: float = 0.0,
                           drift_per_s: float = 0.0) -> np.ndarray:
-    """Allan variance of a power-law clock: the sum of the power-law terms (primer c.4).
+    """Allan variance of a power-law clock: the sum of the power-law terms (module docstring).
 
     sigma_y^2(tau) = 3 s_x^2 / tau^2 + h_0 / (2 tau) + 2 ln 2 h_-1 + (2 pi^2 / 3) h_-2 tau
     + D^2 tau^2 / 2.
@@ -204,8 +213,8 @@ def allan_variance_from_h(h: Mapping[int, float], tau_s, white_pm_s: float = 0.0
     ----------
     h : mapping
         h_alpha by alpha: 0 [s], -1 [1], -2 [1/s]; missing keys count as 0.  Random-run FM
-        (alpha = -4) has no stationary Allan variance (primer c.3, pitfall) and is ignored here:
-        use :func:`hadamard_variance_from_h`.
+        (alpha = -4) has no stationary Allan variance (it grows with the record length; derived
+        here) and is ignored here: use :func:`hadamard_variance_from_h`.
     tau_s : float or ndarray
         Averaging time. [s]
     white_pm_s : float
@@ -226,7 +235,7 @@ def allan_variance_from_h(h: Mapping[int, float], tau_s, white_pm_s: float = 0.0
 
 
 def hadamard_variance_from_h(h: Mapping[int, float], tau_s, white_pm_s: float = 0.0) -> np.ndarray:
-    """Hadamard variance of a power-law clock: the sum of the power-law terms (primer c.3, c.4).
+    """Hadamard variance of a power-law clock: the sum of the power-law terms (module docstring).
 
     H sigma_y^2(tau) = 10 s_x^2 / (3 tau^2) + h_0 / (2 tau) + (4 ln 2 - 1.5 ln 3) h_-1
     + (pi^2 / 3) h_-2 tau + (11 pi^4 / 15) h_-4 tau^3.  A linear drift does not contribute.
@@ -251,54 +260,58 @@ def hadamard_variance_from_h(h: Mapping[int, float], tau_s, white_pm_s: float = 
             + RR_FM_HVAR_FACTOR * h.get(-4, 0.0) * tau ** 3)
 
 
-# Typical levels.  "c.5" marks a value read in the domain primer's table c.5 (typical values for
-# generic types, not any data sheet); "h.3" the worked holdover examples of primer h.3; values
-# with neither are assumptions of common practice with no source, and say so.
+# Typical levels for generic types, not any data sheet.  "published" marks a typical level found
+# in published material (the individual sources were not recorded); "from memory" a level
+# recalled from the literature, not confirmed in a source; "holdover example" a level of our own
+# worked holdover examples (tests/test_holdover.py; our choice, no source); the others are
+# assumptions of common practice with no source, and say so.
 PRESETS: dict[str, ClockPreset] = {
     "hydrogen_maser": ClockPreset(
         key="hydrogen_maser", label="active hydrogen maser",
-        white_fm_adev_1s=1.0e-13,     # c.5: 1-2e-13 at 1 s (also the c.4 example a = 1e-13)
-        flicker_fm_adev=1.0e-15,      # c.5: ~3e-15 at 1e3-1e4 s in total, best 4-6e-16 near 1e4 s
-        rw_fm_adev=1.0e-15,           # h.3: random-walk FM reaching 1e-15 at 10 d
+        white_fm_adev_1s=1.0e-13,     # published: 1-2e-13 at 1 s (our q1 worked example too)
+        flicker_fm_adev=1.0e-15,      # published: ~3e-15 at 1e3-1e4 s in total,
+                                      # best 4-6e-16 near 1e4 s
+        rw_fm_adev=1.0e-15,           # holdover example: RW FM reaching 1e-15 at 10 d
         rw_fm_tau_s=10 * _DAY_S,
-        drift_per_day=1.0e-15,        # c.5: spec < 1e-15/d, observed < 1e-16/d,
+        drift_per_day=1.0e-15,        # published: spec < 1e-15/d, observed < 1e-16/d,
                                       # a fleet from -0.2 to +9.6e-15/d
         frequency_offset=1.0e-13,     # assumption (common practice, no source): tuning offset
     ),
     "cesium_standard": ClockPreset(
         key="cesium_standard", label="cesium beam, standard tube",
-        white_fm_adev_1s=1.0e-11,     # c.5: ~1e-11 tau^-1/2
-        flicker_fm_adev=7.0e-14,      # c.5: floor 5e-14-1e-13
-        rw_fm_adev=1.0e-14,           # h.3: random-walk FM 1e-14 at 30 d (cesium example)
+        white_fm_adev_1s=1.0e-11,     # from memory: ~1e-11 tau^-1/2
+        flicker_fm_adev=7.0e-14,      # from memory: floor 5e-14-1e-13
+        rw_fm_adev=1.0e-14,           # holdover example: RW FM 1e-14 at 30 d (cesium)
         rw_fm_tau_s=30 * _DAY_S,
-        drift_per_day=0.0,            # c.5: no significant drift
-        frequency_offset=1.0e-12,     # c.5: accuracy ~1e-12
+        drift_per_day=0.0,            # from memory: no significant drift
+        frequency_offset=1.0e-12,     # from memory: accuracy ~1e-12
     ),
     "cesium_high_performance": ClockPreset(
         key="cesium_high_performance", label="cesium beam, high-performance tube",
-        white_fm_adev_1s=7.0e-12,     # c.5: 5-8e-12 tau^-1/2
-        flicker_fm_adev=1.0e-14,      # c.5: floor ~1e-14 (< 2e-14 at 5 d)
-        rw_fm_adev=1.0e-14,           # h.3: random-walk FM 1e-14 at 30 d (cesium example)
+        white_fm_adev_1s=7.0e-12,     # from memory: 5-8e-12 tau^-1/2
+        flicker_fm_adev=1.0e-14,      # published: floor ~1e-14 (< 2e-14 at 5 d)
+        rw_fm_adev=1.0e-14,           # holdover example: RW FM 1e-14 at 30 d (cesium)
         rw_fm_tau_s=30 * _DAY_S,
-        drift_per_day=0.0,            # c.5: no drift given
-        frequency_offset=1.0e-12,     # c.5: accuracy 1e-12
+        drift_per_day=0.0,            # published levels give no drift
+        frequency_offset=1.0e-12,     # published: accuracy 1e-12
     ),
     "rubidium": ClockPreset(
         key="rubidium", label="rubidium vapour cell (commercial)",
-        white_fm_adev_1s=2.0e-11,     # c.5: 1-3e-11 at 1 s
-        flicker_fm_adev=3.0e-13,      # c.5: floor 1e-13-1e-12
+        white_fm_adev_1s=2.0e-11,     # from memory: 1-3e-11 at 1 s
+        flicker_fm_adev=3.0e-13,      # from memory: floor 1e-13-1e-12
         rw_fm_adev=3.0e-13,           # assumption (no source): reaches the floor at 10 d
         rw_fm_tau_s=10 * _DAY_S,
-        drift_per_day=1.0e-12,        # c.5: 1e-11-5e-11 per month (3e-13-1.7e-12 per day)
+        drift_per_day=1.0e-12,        # from memory: 1e-11-5e-11 per month
+                                      # (3e-13-1.7e-12 per day)
         frequency_offset=1.0e-11,     # assumption (common practice, no source): calibration offset
     ),
     "chip_scale": ClockPreset(
         key="chip_scale", label="chip-scale atomic clock",
-        white_fm_adev_1s=3.0e-10,     # c.5: 2-6e-10 tau^-1/2
-        flicker_fm_adev=8.0e-12,      # c.5: ~1e-11 at 1 h in total (design target)
+        white_fm_adev_1s=3.0e-10,     # published: 2-6e-10 tau^-1/2
+        flicker_fm_adev=8.0e-12,      # published: ~1e-11 at 1 h in total (design target)
         rw_fm_adev=1.0e-11,           # assumption (no source): random walk of 1e-11 at 1 d
         rw_fm_tau_s=_DAY_S,
-        drift_per_day=3.0e-11,        # c.5: ~1e-9 per month
+        drift_per_day=3.0e-11,        # published: ~1e-9 per month
         frequency_offset=5.0e-10,     # assumption (common practice, no source): set-up offset
     ),
 }
@@ -324,7 +337,7 @@ def expected_adev(preset: str | ClockPreset, tau_s, white_pm_s: float = 0.0,
                   drift_per_s: float = 0.0) -> np.ndarray:
     """Expected Allan deviation of a clock of the given type at tau.
 
-    The square root of the sum of the power-law terms (:func:`allan_variance_from_h`, primer c.4):
+    The square root of the sum of the power-law terms (:func:`allan_variance_from_h`):
     white FM, flicker FM and random-walk FM of the type, plus optionally the white PM of the
     measurement and a deterministic drift.  Random-run FM is left out (no stationary AVAR).
 
@@ -355,8 +368,8 @@ def expected_adev(preset: str | ClockPreset, tau_s, white_pm_s: float = 0.0,
 def expected_hdev(preset: str | ClockPreset, tau_s, white_pm_s: float = 0.0) -> np.ndarray:
     """Expected Hadamard deviation of a clock of the given type at tau.
 
-    The square root of the sum of the power-law terms (:func:`hadamard_variance_from_h`, primer
-    c.3, c.4), including random-run FM; insensitive to linear drift.
+    The square root of the sum of the power-law terms (:func:`hadamard_variance_from_h`),
+    including random-run FM; insensitive to linear drift.
 
     Parameters
     ----------

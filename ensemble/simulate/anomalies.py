@@ -5,7 +5,7 @@ Turns a scenario's ``[[anomalies]]`` and ``[[reference_changes]]`` into arrays o
 * changes of the clock itself, added to its true phase (clock - ideal time), with t0 the event's
   epoch: phase step b: x += b for t >= t0; frequency step c: x += c (t - t0); drift change D:
   x += D (t - t0)^2 / 2.  On the second difference s_k = x_{k+1} - 2 x_k + x_{k-1} these give
-  the signatures of domain primer e.1: (+b, -b, 0) and (0, c tau, 0) at k0 - 1, k0, k0 + 1;
+  the signatures (derived here) (+b, -b, 0) and (0, c tau, 0) at k0 - 1, k0, k0 + 1;
 * reading errors of a channel (outliers, +a at one epoch: (+a, -2a, +a)), which leave the clock
   alone;
 * the multiplier of each clock's white-FM level per interval (noise growth);

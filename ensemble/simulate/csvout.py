@@ -1,6 +1,6 @@
 """Fast writer of the long measurement CSV (internal module of :mod:`ensemble.simulate`).
 
-Layout (contract section 1): header ``mjd,clock,reference,phase``; one row per existing
+Layout (docs/input.md): header ``mjd,clock,reference,phase``; one row per existing
 measurement; rows sorted by epoch, then by clock identifier (string order); missing values are
 absent rows.
 

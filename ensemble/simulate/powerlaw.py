@@ -6,17 +6,18 @@ PM (1), white FM (0), flicker FM (-1), random-walk FM (-2) and random-run FM (-4
 starts at x_0 = 0 and is a deterministic function of the numpy Generator it is given.
 
 Discrete-time relations (chosen so that the Allan variance of the sampled phase equals the
-power-law formulas of IEEE Std 1139-2008 and Riley, NIST SP 1065 (2008), domain primer c.4):
+power-law formulas of IEEE Std 1139-2008 and Riley, NIST SP 1065 (2008), recalled from memory
+and reproduced by our own computation):
 
 * White PM: independent phase samples of standard deviation s_x (given directly in seconds);
   AVAR = 3 s_x^2 / tau^2 at every tau.  From h_2: s_x^2 = h_2 f_h / (4 pi^2), f_h = 1 / (2 tau0).
 * White FM: exact sampling of a phase random walk, increments N(0, q1 tau0) with q1 = h_0 / 2;
   AVAR = h_0 / (2 tau) exactly at every tau = m tau0.
 * Random-walk FM: exact sampling of integrated Brownian frequency (q2 = 2 pi^2 h_-2) with the
-  correlated (phase, frequency) increments of Q(tau0), primer c.2; AVAR = (2 pi^2/3) h_-2 tau
-  exactly at every tau.
+  correlated (phase, frequency) increments of Q(tau0) (:mod:`ensemble.model.clockmodel`);
+  AVAR = (2 pi^2/3) h_-2 tau exactly at every tau.
 * Random-run FM: exact sampling of the three-state model with q3 = 8 pi^4 h_-4 only (Q(tau0) of
-  primer c.2); HVAR = 11 q3 tau^3 / 120 = (11 pi^4 / 15) h_-4 tau^3 exactly.
+  :mod:`ensemble.model.clockmodel`); HVAR = 11 q3 tau^3 / 120 = (11 pi^4 / 15) h_-4 tau^3 exactly.
 * Flicker FM and flicker PM: the fractional-differencing filter of Kasdin & Walter (1992),
   "Discrete simulation of power law noise", Proc. 1992 IEEE Frequency Control Symposium,
   h_0 = 1, h_k = h_{k-1} (k - 1 - a/2) / k, applied to white noise of variance
@@ -213,7 +214,8 @@ def random_walk_fm_phase(h_minus2: float, tau0_s: float, n: int,
     """Random-walk frequency noise, S_y(f) = h_-2 / f^2, sampled exactly (q2 = 2 pi^2 h_-2).
 
     Over each interval tau the frequency changes by dy ~ N(0, q2 tau) and the phase by
-    y tau + xi, xi = dy tau / 2 + N(0, q2 tau^3 / 12): the covariance Q(tau) of primer c.2.
+    y tau + xi, xi = dy tau / 2 + N(0, q2 tau^3 / 12): the covariance Q(tau) of
+    :func:`ensemble.model.clockmodel.process_noise`.
 
     Parameters
     ----------
@@ -240,7 +242,7 @@ def random_walk_fm_phase(h_minus2: float, tau0_s: float, n: int,
 
 
 #: Cholesky factor of Q(1)/q3 of the random-run model, [[1/20, 1/8, 1/6], [1/8, 1/3, 1/2],
-#: [1/6, 1/2, 1]] (primer c.2 with q1 = q2 = 0, tau = 1).
+#: [1/6, 1/2, 1]] (Q(tau) of :mod:`ensemble.model.clockmodel` with q1 = q2 = 0, tau = 1).
 _RR_CHOLESKY = np.linalg.cholesky(np.array([[1 / 20, 1 / 8, 1 / 6], [1 / 8, 1 / 3, 1 / 2],
                                             [1 / 6, 1 / 2, 1.0]]))
 
@@ -249,9 +251,9 @@ def random_run_fm_phase(h_minus4: float, tau0_s: float, n: int,
                         rng: np.random.Generator) -> np.ndarray:
     """Random-run frequency noise, S_y(f) = h_-4 / f^4: a drift performing a random walk.
 
-    Exact sampling of the three-state model with q3 = 8 pi^4 h_-4 (primer c.1, c.2): the state
-    noise over tau has the covariance q3 [[tau^5/20, tau^4/8, tau^3/6], [tau^4/8, tau^3/3,
-    tau^2/2], [tau^3/6, tau^2/2, tau]].
+    Exact sampling of the three-state model with q3 = 8 pi^4 h_-4 (derived in
+    :mod:`ensemble.model.clockmodel`): the state noise over tau has the covariance
+    q3 [[tau^5/20, tau^4/8, tau^3/6], [tau^4/8, tau^3/3, tau^2/2], [tau^3/6, tau^2/2, tau]].
 
     Parameters
     ----------

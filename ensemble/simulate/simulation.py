@@ -31,8 +31,9 @@ from .anomalies import Event, build_injection
 from .powerlaw import component_rng, flicker_pm_phase, powerlaw_phase, white_pm_phase
 from .scenario import SECONDS_PER_DAY, Scenario
 
-#: MVAR of flicker PM at large n is 3.3740 h_1 / ((2 pi)^2 tau^2) (domain primer j.5), so its
-#: TDEV plateau T_f gives h_1 = 12 pi^2 T_f^2 / 3.3740.
+#: MVAR of flicker PM at large n is 3.3740 h_1 / ((2 pi)^2 tau^2) (our own numerical evaluation;
+#: the rounder 3.37 is recalled from memory), so its TDEV plateau T_f gives
+#: h_1 = 12 pi^2 T_f^2 / 3.3740.
 FLICKER_PM_MVAR_FACTOR = 3.3740
 
 

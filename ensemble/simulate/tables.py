@@ -21,7 +21,7 @@ _NAME_RE = re.compile(r"^[A-Za-z0-9_.\-]{1,32}$")
 
 
 def check_name(name: str, key: str, path) -> None:
-    """ConfigError unless ``name`` is a valid clock identifier (contract section 1)."""
+    """ConfigError unless ``name`` is a valid clock identifier (docs/input.md)."""
     if not _NAME_RE.match(name or ""):
         raise ConfigError(f"invalid clock name {name!r}", key=key, value=name,
                           allowed="1-32 characters of A-Z a-z 0-9 _ . -", path=path)

@@ -1,8 +1,9 @@
 """Chi-squared confidence intervals of stability deviations (internal module).
 
 A variance estimate s^2 with nu equivalent degrees of freedom is modelled as
-s^2 = sigma^2 chi^2_nu / nu (Lesage & Audoin 1973; Howe, Allan & Barnes 1981; domain primer
-j.4).  For a two-sided interval of probability C, p_lo = (1 - C)/2 and p_hi = (1 + C)/2::
+s^2 = sigma^2 chi^2_nu / nu (Lesage & Audoin 1973; Howe, Allan & Barnes 1981; both recalled from
+memory, the interval table checked with scipy in tests/test_edf.py).  For a two-sided interval
+of probability C, p_lo = (1 - C)/2 and p_hi = (1 + C)/2::
 
     var_lo = nu s^2 / chi2.ppf(p_hi, nu)        var_hi = nu s^2 / chi2.ppf(p_lo, nu)
 

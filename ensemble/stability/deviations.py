@@ -1,6 +1,8 @@
 """Allan, modified Allan, time and Hadamard deviations of phase or frequency data (internal module).
 
-Definitions (Riley, Handbook of Frequency Stability Analysis, SP 1065, 2008; domain primer j.3).
+Definitions (Riley, Handbook of Frequency Stability Analysis, SP 1065, 2008).  The index
+conventions below are ours, fixed by reproducing the handbook's validation values (recalled from
+memory, not read in the handbook) to every digit in tests/test_deviations.py.
 N phase points x_0 .. x_{N-1} [s] sampled every tau0 [s]; averaging factor m, tau = m tau0::
 
     OAVAR = sum_i (x_{i+2m} - 2 x_{i+m} + x_i)^2 / (2 tau^2 (N - 2m))

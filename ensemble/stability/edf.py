@@ -1,7 +1,8 @@
 """Equivalent degrees of freedom (EDF) of the stability variances (internal module).
 
 Greenhall & Riley (2003), "Uncertainty of stability variances based on finite differences",
-Proc. 35th PTTI (domain primer j.4).  A variance estimator built from d-th differences
+Proc. 35th PTTI (recalled from memory, not read in the paper; numerically consistent with the
+exact quadratic-form EDF, tests/test_edf.py).  A variance estimator built from d-th differences
 (d = 2 Allan, d = 3 Hadamard) of phase, with averaging factor m, has
 
 * filter factor F: F = 1 for a modified variance, F = m for an unmodified one (the phase
@@ -41,7 +42,7 @@ flicker FM, (0.93, 0.36) random-walk FM.  For white and flicker PM no coefficien
 published; we use the overlapping Allan EDF, which the total variance's extra (reflected)
 terms can only raise.
 
-Doubt (domain primer j.4): with F = m, the sum overstates the EDF of unmodified variances for
+Doubt (our own finding): with F = m, the sum overstates the EDF of unmodified variances for
 alpha <= 0 at small m against the exact quadratic-form value (OADEV white FM, N = 1001: m = 1,
 782.0 vs 666.2) and understates it at moderate m (m = 10: 135.1 vs 146.1).  We keep the
 published algorithm; docs/stability.md tabulates the differences.

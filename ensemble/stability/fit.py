@@ -1,6 +1,7 @@
 """Clock-model noise parameters fitted to a measured Hadamard or Allan variance curve.
 
-Model curves (domain primer c.3, c.4, f.1), tau the averaging time [s]::
+Model curves (derived in :mod:`ensemble.model.clockmodel`, plus a flicker-FM floor with the
+constants of :mod:`ensemble.model.presets`), tau the averaging time [s]::
 
     Hadamard:  H sigma^2(tau) = (10/3) r tau^-2 + q1 tau^-1 + q2 tau / 6 + (11/120) q3 tau^3
                                 + 1.124670 h_-1
@@ -18,7 +19,8 @@ fitted curve stops changing.  Rows and columns are scaled to order one before ea
 variances of 1e-26...1e-34 and parameters spanning 40 decades stay well conditioned.
 
 :func:`separate_clock_noise` fits every pair difference and separates the pair parameters per
-clock with the N-cornered hat (the parameters of independent clocks add like variances; f.2).
+clock with the N-cornered hat of :mod:`ensemble.stability.hat` (the parameters of independent
+clocks add like variances).
 """
 
 from __future__ import annotations
@@ -38,9 +40,11 @@ __all__ = ["NoiseFit", "ClockNoiseSeparation", "fit_noise", "model_variance",
            "separate_clock_noise", "simulate_variance_points", "FLICKER_AVAR", "FLICKER_HVAR",
            "TERM_NAMES"]
 
-#: AVAR of flicker FM per unit h_-1: 2 ln 2 = 1.386294 (primer c.4).
+#: AVAR of flicker FM per unit h_-1: 2 ln 2 = 1.386294 (IEEE Std 1139-2008; recalled,
+#: reproduced here).
 FLICKER_AVAR = 2.0 * math.log(2.0)
-#: HVAR of flicker FM per unit h_-1: 4 ln 2 - (3/2) ln 3 = 1.124670 (primer c.4).
+#: HVAR of flicker FM per unit h_-1: 4 ln 2 - (3/2) ln 3 = 1.124670 (value recalled from memory;
+#: closed form identified numerically here).
 FLICKER_HVAR = 4.0 * math.log(2.0) - 1.5 * math.log(3.0)
 #: Names of the fit terms, in the order used by every array of this module.
 TERM_NAMES = ("r", "q1", "q2", "q3", "flicker")
@@ -327,8 +331,9 @@ def separate_clock_noise(pairs: Sequence[tuple[Hashable, Hashable]], tau_s, pair
     Notes
     -----
     The q's of independent clocks add like variances (q_ij = q_i + q_j for each term), so the
-    hat of primer f.2 applies to each term separately, with the fit uncertainties as pair
-    uncertainties.  The hat weights the pairs equally (closed form when all pairs are given).
+    hat of :func:`~ensemble.stability.hat.n_cornered_hat` applies to each term separately, with
+    the fit uncertainties as pair uncertainties.  The hat weights the pairs equally (closed form
+    when all pairs are given).
     """
     s = np.asarray(pair_variance, dtype=float)
     if s.ndim != 2 or s.shape[0] != len(pairs):
@@ -398,8 +403,8 @@ def simulate_variance_points(noise: ClockNoise, tau0_s: float, n_samples: int, m
     kind : {"hadamard", "allan"}
         Overlapping Hadamard variance, sum (x[i+3m] - 3x[i+2m] + 3x[i+m] - x[i])^2 /
         (6 tau^2 (N - 3m)), or overlapping Allan variance, sum (x[i+2m] - 2x[i+m] + x[i])^2 /
-        (2 tau^2 (N - 2m)) (domain primer j.3).  The measured points must come from the same
-        estimator for the covariance to apply.
+        (2 tau^2 (N - 2m)) (:mod:`ensemble.stability.deviations`).  The measured points must
+        come from the same estimator for the covariance to apply.
     n_realisations : int
         Number of simulated records (sampling error of the covariance about sqrt(2 / n)).
     seed : int
@@ -415,9 +420,10 @@ def simulate_variance_points(noise: ClockNoise, tau0_s: float, n_samples: int, m
     Notes
     -----
     Flicker FM has no finite-state model and is not simulated.  Each record is the exact
-    discretisation of primer c.2 (x, y, d propagated with Phi(tau0) and Gaussian Q(tau0)
-    increments, drawn through an eigendecomposition because Q is nearly singular) plus white
-    PM of variance r.  Cost: n_realisations x (3 N random numbers + n_points passes over N).
+    discretisation of :mod:`ensemble.model.clockmodel` (x, y, d propagated with Phi(tau0) and
+    Gaussian Q(tau0) increments, drawn through an eigendecomposition because Q is nearly
+    singular) plus white PM of variance r.  Cost: n_realisations x (3 N random numbers +
+    n_points passes over N).
     """
     if kind not in _KINDS:
         raise ValueError(f"kind must be one of {_KINDS}, got {kind!r}")
@@ -490,7 +496,8 @@ def _resolve_terms(kind: str, terms, flicker: bool) -> tuple[str, ...]:
         raise ValueError(f"terms must be a non-empty list without repeats, got {terms}")
     if kind == "allan" and "q3" in terms:
         raise ValueError("q3 (random-run FM) cannot be fitted to an Allan variance: it has no "
-                         "stationary AVAR (domain primer c.3); fit the Hadamard variance")
+                         "stationary AVAR (it grows with the record length); fit the Hadamard "
+                         "variance")
     return tuple(t for t in TERM_NAMES if t in terms)
 
 

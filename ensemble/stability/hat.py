@@ -1,14 +1,15 @@
 """N-cornered hat: individual clock variances from the variances of their pair differences.
 
 For independent clocks the variance of a difference is the sum of the clocks' variances,
-sigma_ij^2 = sigma_i^2 + sigma_j^2 (domain primer f.2), for any variance that is a quadratic form
-of the phase (Allan, Hadamard, modified ...) and for any quantity that adds like one (the noise
-parameters q1, q2, q3, r of the clock model).  Three clocks (Gray & Allan 1974)::
+sigma_ij^2 = sigma_i^2 + sigma_j^2 (variances of independent terms add), for any variance that
+is a quadratic form of the phase (Allan, Hadamard, modified ...) and for any quantity that adds
+like one (the noise parameters q1, q2, q3, r of the clock model).  Three clocks (Gray & Allan
+1974)::
 
     sigma_1^2 = (sigma_12^2 + sigma_13^2 - sigma_23^2) / 2
 
-N clocks with every pair measured (closed form, equal to least squares over all pairs; primer
-f.2)::
+N clocks with every pair measured (closed form derived here, equal to least squares over all
+pairs; checked in tests/test_hat.py)::
 
     sigma_i^2 = [ sum_{j != i} sigma_ij^2 - S_tot / (N - 1) ] / (N - 2),
     S_tot = sum_{j<k} sigma_jk^2
@@ -177,7 +178,8 @@ def n_cornered_hat(pair_variance, pairs: Sequence[tuple[Hashable, Hashable]], *,
         uncertainty s sqrt(2 / edf) (chi-square model of a variance estimate).
     weights : ndarray, same shape as pair_variance, optional
         Relative least-squares weights (> 0).  Default: ``pair_edf``, or equal weights.  With
-        every pair present and equal weights in a column the closed form of primer f.2 is used.
+        every pair present and equal weights in a column the closed form of the module
+        docstring is used.
     clocks : sequence of labels, optional
         Row order of the result; default: order of first appearance in ``pairs``.
     tau_s : ndarray, shape (n_tau,), optional
@@ -270,7 +272,7 @@ def n_cornered_hat(pair_variance, pairs: Sequence[tuple[Hashable, Hashable]], *,
 
 
 def _closed_form_operator(n_clocks: int, design: np.ndarray) -> np.ndarray:
-    """Rows of the closed form (primer f.2) as a linear operator on the pair values.
+    """Rows of the closed form (module docstring) as a linear operator on the pair values.
 
     sigma_i^2 = [sum_{j != i} s_ij - S_tot / (N - 1)] / (N - 2)
     """

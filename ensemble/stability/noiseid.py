@@ -6,18 +6,18 @@ flicker-walk FM, -4 random-run FM.  At averaging factor m the data are first red
 "tau-samples": phase decimated to every m-th point, or frequency averaged over blocks of m
 (a block with a gap is missing).  Then:
 
-* **Lag-1 autocorrelation** (Riley & Greenhall 2004, Proc. EFTF; domain primer f.3) when at
-  least :data:`LAG1_MIN_SAMPLES` frequency tau-samples exist: r1 is the lag-1 autocorrelation of
-  the series, delta = r1 / (1 + r1); while delta >= 0.25 and fewer than dmax differences have
-  been taken, difference the series and repeat.  alpha = -2 (delta + d) for frequency data,
-  +2 for phase data, rounded to an integer (d = number of differences taken).  dmax lets
-  alpha reach -2 for the Allan family and -4 for the Hadamard family (2 and 3 differences of
-  phase, 1 and 2 of frequency); the result is clipped to that range.  When the result is a
-  PM noise (alpha 2 or 1) and m > 1, R(n) decides between white PM, flicker PM and white FM
-  as for B1 below (method 'lag1+rn'): decimated flicker PM reads as white PM to the lag-1
-  rule, R(n) does not (flicker PM found in 98 % instead of 55 % of seeded records with 100
-  samples at m = 4).
-* **B1 ratio** (Barnes 1969; domain primer f.3) with fewer samples (at least
+* **Lag-1 autocorrelation** (Riley & Greenhall 2004, Proc. EFTF; recalled from memory,
+  confirmed by our seeded simulations) when at least :data:`LAG1_MIN_SAMPLES` frequency
+  tau-samples exist: r1 is the lag-1 autocorrelation of the series, delta = r1 / (1 + r1);
+  while delta >= 0.25 and fewer than dmax differences have been taken, difference the series
+  and repeat.  alpha = -2 (delta + d) for frequency data, +2 for phase data, rounded to an
+  integer (d = number of differences taken).  dmax lets alpha reach -2 for the Allan family
+  and -4 for the Hadamard family (2 and 3 differences of phase, 1 and 2 of frequency); the
+  result is clipped to that range.  When the result is a PM noise (alpha 2 or 1) and m > 1,
+  R(n) decides between white PM, flicker PM and white FM as for B1 below (method 'lag1+rn'):
+  decimated flicker PM reads as white PM to the lag-1 rule, R(n) does not (flicker PM found in
+  98 % instead of 55 % of seeded records with 100 samples at m = 4).
+* **B1 ratio** (Barnes 1969; recalled from memory, verified here) with fewer samples (at least
   :data:`B1_MIN_SAMPLES`): B1 = (sample variance of the frequency tau-samples) / (their
   Allan variance), compared with B1(n, mu) = n (1 - n^mu) / (2 (n - 1) (1 - 2^mu)) for
   sigma_y^2 ~ tau^mu, mu = -2, -1, 0, 1 (alpha = -mu - 1); the nearest value wins, with
@@ -165,7 +165,7 @@ def b1_expected(n: int, mu: float) -> float:
     """Expected B1 ratio for n frequency samples when sigma_y^2(tau) ~ tau^mu.
 
     B1(n, mu) = n (1 - n^mu) / (2 (n - 1) (1 - 2^mu)); the limit n ln n / (2 (n - 1) ln 2)
-    at mu = 0 (Barnes 1969; domain primer f.3).
+    at mu = 0 (Barnes 1969; recalled from memory, verified in tests/test_noiseid.py).
     """
     n = float(n)
     if mu == 0:

@@ -1,7 +1,7 @@
 """Time-error statistics of ITU-T G.810 (Appendix II): TIE, TIE rms and MTIE.
 
 x_i is the time error (phase) against the reference, sampled every tau0 [s]; tau = n tau0
-(domain primer h.1)::
+(formulas recalled from memory, checked against closed forms in tests/test_timeerror.py)::
 
     TIE(t_i; tau) = x_{i+n} - x_i
     TIE_rms(tau)  = sqrt(mean_i TIE(t_i; tau)^2)
@@ -148,7 +148,8 @@ def mtie(phase_s, tau0_s: float, n=None) -> TimeErrorStatistic:
 
     Notes
     -----
-    MTIE(n tau0) = max_{1<=k<=N-n} [max_{k<=i<=k+n} x_i - min_{k<=i<=k+n} x_i] (primer h.1).
+    MTIE(n tau0) = max_{1<=k<=N-n} [max_{k<=i<=k+n} x_i - min_{k<=i<=k+n} x_i]
+    (ITU-T G.810, Appendix II; recalled from memory).
     The running maximum and minimum of width n + 1 are centred at k + (n + 1) // 2 by
     scipy.ndimage, hence the slice below.  MTIE of random noise grows with the record length
     (an extreme value): quote it with the record length.

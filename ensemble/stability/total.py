@@ -1,8 +1,9 @@
 """Total deviation TOTDEV (internal module).
 
 Definition (Howe's total variance; Riley, Handbook of Frequency Stability Analysis, SP 1065,
-2008; domain primer j.3).  N phase points x_1 .. x_N, extended at both ends by **odd
-reflection** for j = 1 .. N-2::
+2008; the reflection convention fixed by reproducing the handbook's validation values, recalled
+from memory, in tests/test_deviations.py).  N phase points x_1 .. x_N, extended at both ends by
+**odd reflection** for j = 1 .. N-2::
 
     x*_{1-j} = 2 x_1 - x_{1+j}          x*_{N+j} = 2 x_N - x_{N-j}
 

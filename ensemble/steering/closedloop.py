@@ -229,7 +229,7 @@ def simulate_closed_loop(setup: SimulationSetup,
     noise = master.noise
     r_s2 = noise.r_s2
 
-    # Truth: master - scale (x, y, d) with the exact discretisation (primer c.2).
+    # Truth: master - scale (x, y, d) with the exact discretisation (ensemble.model.clockmodel).
     phi3 = transition_matrix(dt_s, 3)
     x0 = np.array([master.initial_phase_ns * 1e-9, master.initial_frequency,
                    master.drift_per_day / SECONDS_PER_DAY])

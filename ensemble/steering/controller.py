@@ -319,7 +319,7 @@ class SteeringController:
                     proposed, self.total_correction, s.max_step, s.max_total)
                 self._last_command_mjd = mjd
 
-        # Phase error expected at the next command epoch (primer h.3), after this change.
+        # Phase error expected at the next command epoch after this change (cf. assess/holdover.py).
         h = (self._next_mjd - mjd) * 86400.0
         predicted = x_err + h * (y_err + u) + 0.5 * h * h * d
         var = (p00 + 2.0 * h * p01 + h * h * (p11 + p02) + h ** 3 * p12 + 0.25 * h ** 4 * p22)

@@ -191,10 +191,10 @@ def _number(cell: str, path: str, row: int, column: str, unit: str) -> float | N
 class ExternalFlywheel:
     """Two-state Kalman filter of ``external - scale`` (offset, rate) between sparse points.
 
-    Model (the two-state clock model of primer c.1-c.2 applied to the difference): offset e and
-    rate r with white-FM q1 and random-walk-FM q2; a point measures e with its own variance.
-    The filter runs in scaled units (ns, ns/d, days; primer b).  Queries are causal: an estimate
-    at epoch t uses the points with mjd <= t only.
+    Model (the two-state clock model, :mod:`ensemble.model.clockmodel`, applied to the
+    difference): offset e and rate r with white-FM q1 and random-walk-FM q2; a point measures e
+    with its own variance.  The filter runs in scaled units (ns, ns/d, days; ensemble/units.py).
+    Queries are causal: an estimate at epoch t uses the points with mjd <= t only.
 
     Parameters
     ----------
@@ -233,7 +233,7 @@ class ExternalFlywheel:
         x0, x1 = self._x
         p11, p12, p22 = self._p
         q1, q2 = self._q1, self._q2
-        # Phi = [[1, dt], [0, 1]];  Q = [[q1 dt + q2 dt^3/3, q2 dt^2/2], [., q2 dt]] (primer c.2)
+        # Phi = [[1, dt], [0, 1]];  Q = [[q1 dt + q2 dt^3/3, q2 dt^2/2], [., q2 dt]] (clockmodel.py)
         n11 = p11 + 2.0 * dt_d * p12 + dt_d * dt_d * p22 + q1 * dt_d + q2 * dt_d ** 3 / 3.0
         n12 = p12 + dt_d * p22 + 0.5 * q2 * dt_d * dt_d
         n22 = p22 + q2 * dt_d

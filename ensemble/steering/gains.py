@@ -1,6 +1,6 @@
 """Steering gains: critically damped pole placement and the LQG regulator (pure functions).
 
-Plant of the steered output between two commands, interval tau (domain primer g.1)::
+Plant of the steered output between two commands, interval tau (derived here; docs/steering.md)::
 
     x[k+1] = x[k] + tau y[k] + tau^2/2 d[k] + tau u[k]        x: output - target [s]
     y[k+1] = y[k] + tau d[k] + u[k]                           y: its fractional frequency [1]
@@ -13,13 +13,15 @@ the output runs faster).  Every policy here is the state feedback
 
 with g_x [1/s], g_y [1] and g_d [s], applied to the estimates (certainty equivalence).
 
-* Critically damped (primer g.2): double closed-loop pole p = exp(-tau/T),
-  g_y = 1 - p^2, g_x = (1 - p)^2 / tau.
-* LQG (Koppang & Leland 1999, IEEE Trans. UFFC 46(3), 517-522; primer g.3): minimise
+* Critically damped (derived here; cf. Matsakis et al. 2019, first author from memory,
+  Metrologia 56(2), 025007): double closed-loop pole p = exp(-tau/T), g_y = 1 - p^2,
+  g_x = (1 - p)^2 / tau.
+* LQG (Koppang & Leland 1999, IEEE Trans. UFFC 46(3), 517-522): minimise
   sum x^2 + w_y y^2 + rho u^2 in scaled units (ns, ns/d, days).  The gain is
   G = (rho + B^T S B)^-1 B^T S Phi with S the stabilising solution of the discrete algebraic
   Riccati equation, from ``scipy.linalg.solve_discrete_are``.  In SI units the Riccati solver
-  fails (primer b), so the problem is posed in ns and days and the gain converted back.
+  fails (our own finding: it returns an unstable solution), so the problem is posed in ns and
+  days and the gain converted back.
 * Drift: the drift mode is not controllable (its eigenvalue 1 stays), so it is not part of the
   Riccati problem.  The feed-forward g_d = tau (1 - g_y / 2) makes a constant drift leave no
   phase error at the command epochs: in the steady state u = -tau d (the change cancels one
@@ -150,7 +152,7 @@ def closed_loop_matrix(interval_s: float, g_x: float, g_y: float) -> np.ndarray:
     Returns
     -------
     ndarray, shape (2, 2)
-        Characteristic polynomial lambda^2 - (2 - tau g_x - g_y) lambda + (1 - g_y) (primer g.2).
+        Characteristic polynomial lambda^2 - (2 - tau g_x - g_y) lambda + (1 - g_y) (derived here).
     """
     t = float(interval_s)
     return np.array([[1.0 - t * g_x, t * (1.0 - g_y)], [-g_x, 1.0 - g_y]])

@@ -4,9 +4,9 @@ which limits.
 Every key has a unit, a default and a reason for the default (docs/steering.md, "Settings").
 The defaults describe a maser-driven synthesizer steered daily onto the local ensemble scale:
 a ten-day critically damped loop, changes of at most 1e-15 per command and a total correction
-of at most 3e-13 (domain primer a.4 and g.4).  Values are written in the units of the key's
-suffix (``_d`` days, ``_h`` hours, ``_ns`` nanoseconds, ``_s`` seconds, ``_d2`` days squared);
-keys without a suffix are dimensionless fractional frequencies.
+of at most 3e-13 (typical values of practice, recalled from memory, no source).  Values are
+written in the units of the key's suffix (``_d`` days, ``_h`` hours, ``_ns`` nanoseconds, ``_s``
+seconds, ``_d2`` days squared); keys without a suffix are dimensionless fractional frequencies.
 """
 
 from __future__ import annotations
