@@ -12,20 +12,22 @@ from ensemble.model import ClockNoise, allan_variance, hadamard_variance
 from ensemble.stability.fit import (FLICKER_AVAR, FLICKER_HVAR, fit_noise, model_variance,
                                     separate_clock_noise, simulate_variance_points)
 from ensemble.stability.hat import NegativeVarianceWarning
+from hadamard_oracles import ExactEdf, ohvar
 
 TAU0_S = 900.0
 TAU_S = TAU0_S * 2.0 ** np.arange(14)          # 900 s ... 85 d, octave spacing
 MASER_LIKE = ClockNoise(q1_s=1e-26, q2_per_s=3.5e-36, q3_per_s3=2e-50, r_s2=(30e-12) ** 2)
 
 
-# --- test helpers: exact clock simulation, brute-force OHVAR, exact EDF ---------------------
+# --- test helper: exact clock simulation (oracles in tests/hadamard_oracles.py) ---------------
 
 def simulate_phase(rng, n, tau0_s, q1_s, q2_per_s, r_s2=0.0, size=()):
     """Phase samples of the clock model (white FM q1, RW FM q2) plus white PM r, exact.
 
     Over one interval tau: y gains eta ~ N(0, q2 tau); x gains y tau + eta tau/2 + zeta + w,
-    zeta ~ N(0, q2 tau^3/12), w ~ N(0, q1 tau) (Q of domain.md c.2); each sample then gets an
-    independent N(0, r) measurement error.
+    zeta ~ N(0, q2 tau^3/12), w ~ N(0, q1 tau) (the exact Q(tau) of
+    ensemble/model/clockmodel.py); each sample then gets an independent N(0, r) measurement
+    error.
     """
     shape = tuple(size) + (n - 1,)
     eta = rng.normal(0.0, np.sqrt(q2_per_s * tau0_s), shape)
@@ -37,50 +39,18 @@ def simulate_phase(rng, n, tau0_s, q1_s, q2_per_s, r_s2=0.0, size=()):
     return x + rng.normal(0.0, np.sqrt(r_s2), x.shape)
 
 
-def ohvar(x, m, tau0_s):
-    """Overlapping Hadamard variance, brute-force definition (domain.md j.3)."""
-    d = x[..., 3 * m:] - 3 * x[..., 2 * m:-m] + 3 * x[..., m:-2 * m] - x[..., :-3 * m]
-    return np.mean(d * d, axis=-1) / (6.0 * (m * tau0_s) ** 2)
-
-
-class ExactEdf:
-    """Exact EDF of the OHVAR, (tr G)^2 / sum G^2 with G = D Sigma D^T (domain.md j.4 oracle).
-
-    Sigma of the sampled model with x(0) = 0: white FM q1 min(s, t); RW FM
-    q2 (s t m - (s + t) m^2 / 2 + m^3 / 3), m = min(s, t); white PM r on the diagonal.
-    """
-
-    def __init__(self, n, tau0_s, ms):
-        t = np.arange(n) * tau0_s
-        s, u = np.meshgrid(t, t, indexing="ij")
-        mn = np.minimum(s, u)
-        parts = [mn, s * u * mn - (s + u) * mn ** 2 / 2 + mn ** 3 / 3, np.eye(n)]
-        self.moments = {}
-        for m in ms:
-            gs = [self._third_diff(self._third_diff(p, m).T, m) for p in parts]
-            self.moments[m] = (np.array([np.trace(g) for g in gs]),
-                               np.array([[np.sum(a * b) for b in gs] for a in gs]))
-
-    @staticmethod
-    def _third_diff(a, m):
-        return a[3 * m:] - 3 * a[2 * m:-m] + 3 * a[m:-2 * m] - a[:-3 * m]
-
-    def __call__(self, m, q1_s, q2_per_s, r_s2=0.0):
-        tr, inner = self.moments[m]
-        q = np.array([q1_s, q2_per_s, r_s2])
-        return float((tr @ q) ** 2 / (q @ inner @ q))
-
-
 # --- exact model curves -------------------------------------------------------------------------
 
 def test_flicker_constants():
-    # Cross-check: domain.md c.4 (M+D): AVAR 2 ln2 = 1.386294, HVAR 4 ln2 - 1.5 ln3 = 1.124670.
+    # Cross-check: flicker FM constants, AVAR 2 ln2 = 1.386294 (IEEE Std 1139, recalled from
+    # memory, reproduced here), HVAR 4 ln2 - 1.5 ln3 = 1.124670 (closed form identified
+    # numerically by us).
     assert FLICKER_AVAR == pytest.approx(1.386294, abs=5e-7)
     assert FLICKER_HVAR == pytest.approx(1.124670, abs=5e-7)
 
 
 def test_exact_hadamard_curve_recovered():
-    # Cross-check: the model curve of domain.md c.3 / f.1 (ensemble.model.hadamard_variance,
+    # Cross-check: the model curve, our own derivation (ensemble.model.hadamard_variance,
     # tested separately); a noise-free curve must give the parameters back to 1e-9.
     fit = fit_noise(TAU_S, hadamard_variance(MASER_LIKE, TAU_S), edf=20.0)
     got = fit.noise
@@ -93,7 +63,7 @@ def test_exact_hadamard_curve_recovered():
 
 
 def test_exact_allan_curve_recovered():
-    # Cross-check: AVAR of the model, 3r/tau^2 + q1/tau + q2 tau/3 (domain.md c.3).
+    # Cross-check: AVAR of the model, 3r/tau^2 + q1/tau + q2 tau/3 (derived here).
     noise = ClockNoise(q1_s=7.2e-23, q2_per_s=1.2e-34, r_s2=(0.3e-9) ** 2)
     fit = fit_noise(TAU_S, allan_variance(noise, TAU_S), edf=np.linspace(500, 5, TAU_S.size),
                     kind="allan")
@@ -103,8 +73,8 @@ def test_exact_allan_curve_recovered():
 
 @pytest.mark.parametrize("kind", ["hadamard", "allan"])
 def test_flicker_floor_recovered(kind):
-    # Cross-check: domain.md c.4, h_-1 = sigma_floor^2 / (2 ln 2): a floor of 1e-15 (as an
-    # Allan deviation) has h_-1 = 1e-30 / (2 ln 2).
+    # Cross-check: h_-1 = sigma_floor^2 / (2 ln 2), from AVAR = 2 ln 2 h_-1: a floor of 1e-15
+    # (as an Allan deviation) has h_-1 = 1e-30 / (2 ln 2).
     h = 1e-30 / (2 * math.log(2))
     noise = ClockNoise(q1_s=1e-26, q2_per_s=3.5e-36, r_s2=1e-22)
     curve = model_variance(TAU_S, noise, h, kind=kind)
@@ -194,8 +164,8 @@ def _estimates(fits):
 
 
 def test_simulated_data_recovered_within_reported_uncertainties(simulated_hvar):
-    # Cross-check: seeded simulation of the exact clock model (domain.md c.2) with known
-    # q1, q2, r; OHVAR by its definition (j.3), EDF by the exact quadratic form (j.4).  The
+    # Cross-check: seeded simulation of the exact clock model (Q(tau) derived here) with known
+    # q1, q2, r; OHVAR by its definition (SP 1065), EDF by the exact quadratic form (ours).  The
     # point covariance comes from the package's own simulator with another seed (checked
     # against the exact EDF below).
     hv, edf = simulated_hvar
@@ -239,10 +209,10 @@ def test_chi_square_is_consistent_with_its_dof(simulated_hvar):
 
 
 def test_simulated_variance_points_match_model_and_exact_edf():
-    # Cross-check: the mean of the simulated OHVAR equals the model HVAR (domain.md c.3, with
+    # Cross-check: the mean of the simulated OHVAR equals the model HVAR (derived here, with
     # random-run FM 11 q3 tau^3/120) and its variance 2 HVAR^2 / EDF with the exact EDF
-    # (j.4; q3 = 0 there).  600 records: mean within 4 standard errors, variance within 25 %
-    # (sampling error ~6 %, more for the last, low-EDF point, which is left out).
+    # (ExactEdf, tests/hadamard_oracles.py; q3 = 0 there).  600 records: mean within 4 standard errors, variance
+    # within 25 % (sampling error ~6 %, more for the last, low-EDF point, which is left out).
     noise = ClockNoise(q1_s=1e-26, q2_per_s=7e-35, q3_per_s3=5e-45, r_s2=2e-24)
     tau = SIM_M * TAU0_S
     mean, cov = simulate_variance_points(noise, TAU0_S, SIM_N, SIM_M, n_realisations=600, seed=9)
@@ -271,7 +241,7 @@ def _pair_curves(clocks, pairs, kind="hadamard"):
 
 
 def test_separation_of_exact_pair_curves():
-    # Cross-check: q's of independent clocks add like variances (domain.md f.1-f.2), so exact
+    # Cross-check: q's of independent clocks add like variances (derived here), so exact
     # pair curves built from known clocks give each clock's parameters back.
     clocks = {"H1": ClockNoise(1e-26, 3.5e-36, 2e-50, 9e-22),
               "H2": ClockNoise(2e-26, 1.0e-36, 5e-50, 4e-22),

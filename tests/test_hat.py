@@ -8,17 +8,18 @@ import pytest
 
 from ensemble.stability.hat import (NegativeVarianceWarning, hat_design_matrix, n_cornered_hat,
                                     three_cornered_hat)
+from hadamard_oracles import ExactEdf, ohvar
 
 TAU0_S = 900.0
 
 
-# --- test helpers: exact clock simulation, brute-force OHVAR, exact EDF ---------------------
+# --- test helper: exact clock simulation (oracles in tests/hadamard_oracles.py) ---------------
 
 def simulate_phase(rng, n, tau0_s, q1_s, q2_per_s, size=()):
     """Phase samples of the clock model (white FM q1, random-walk FM q2), exact discretisation.
 
     Over one interval tau: y gains eta ~ N(0, q2 tau); x gains y tau + eta tau/2 + zeta + w,
-    zeta ~ N(0, q2 tau^3/12) and w ~ N(0, q1 tau) independent (Q of domain.md c.2:
+    zeta ~ N(0, q2 tau^3/12) and w ~ N(0, q1 tau) independent (exact Q(tau), derived here:
     Var = q1 tau + q2 tau^3/3, Cov(x, y) = q2 tau^2/2).
     """
     shape = tuple(size) + (n - 1,)
@@ -31,44 +32,11 @@ def simulate_phase(rng, n, tau0_s, q1_s, q2_per_s, size=()):
     return np.concatenate([zeros, np.cumsum(dx, axis=-1)], axis=-1)
 
 
-def ohvar(x, m, tau0_s):
-    """Overlapping Hadamard variance, brute-force definition (domain.md j.3)."""
-    d = x[..., 3 * m:] - 3 * x[..., 2 * m:-m] + 3 * x[..., m:-2 * m] - x[..., :-3 * m]
-    return np.mean(d * d, axis=-1) / (6.0 * (m * tau0_s) ** 2)
-
-
-class ExactEdf:
-    """Exact EDF of the OHVAR for white FM + RW FM: (tr G)^2 / sum G^2, G = D Sigma D^T.
-
-    Cross-check oracle of domain.md j.4.  Sigma of the sampled clock model with x(0) = 0:
-    white FM q1 min(s, t); RW FM q2 (s t m - (s + t) m^2 / 2 + m^3 / 3), m = min(s, t).
-    """
-
-    def __init__(self, n, tau0_s, ms):
-        t = np.arange(n) * tau0_s
-        s, u = np.meshgrid(t, t, indexing="ij")
-        mn = np.minimum(s, u)
-        parts = [mn, s * u * mn - (s + u) * mn ** 2 / 2 + mn ** 3 / 3]
-        self.moments = {}
-        for m in ms:
-            gs = [self._third_diff(self._third_diff(p, m).T, m) for p in parts]
-            self.moments[m] = (np.array([np.trace(g) for g in gs]),
-                               np.array([[np.sum(a * b) for b in gs] for a in gs]))
-
-    @staticmethod
-    def _third_diff(a, m):
-        return a[3 * m:] - 3 * a[2 * m:-m] + 3 * a[m:-2 * m] - a[:-3 * m]
-
-    def __call__(self, m, q1_s, q2_per_s):
-        tr, inner = self.moments[m]
-        q = np.array([q1_s, q2_per_s])
-        return float((tr @ q) ** 2 / (q @ inner @ q))
-
-
 # --- closed forms and least squares -----------------------------------------------------------
 
 def test_three_cornered_hat_is_gray_allan_formula(rng):
-    # Cross-check: Gray & Allan 1974 (domain.md f.2), sigma_1^2 = (s12 + s13 - s23)/2, cyclically.
+    # Cross-check: Gray & Allan 1974 (Proc. 28th Annual Symp. Frequency Control),
+    # sigma_1^2 = (s12 + s13 - s23)/2, cyclically.
     s12, s13, s23 = rng.uniform(1.0, 3.0, (3, 5)) * 1e-26
     res = three_cornered_hat(s12, s13, s23, clocks=("1", "2", "3"))
     np.testing.assert_allclose(res.variance[0], (s12 + s13 - s23) / 2, rtol=1e-13)
@@ -80,7 +48,7 @@ def test_three_cornered_hat_is_gray_allan_formula(rng):
 
 @pytest.mark.parametrize("n_clocks", [3, 4, 5, 7])
 def test_closed_form_equals_least_squares(rng, n_clocks):
-    # Cross-check: primer f.2 closed form against numpy.linalg.lstsq over all pairs.
+    # Cross-check: our N-clock closed form (derived here) against numpy.linalg.lstsq over all pairs.
     pairs = list(itertools.combinations(range(n_clocks), 2))
     s = rng.uniform(0.5, 2.0, (len(pairs), 4))
     res = n_cornered_hat(s, pairs, warn=False)
@@ -90,7 +58,7 @@ def test_closed_form_equals_least_squares(rng, n_clocks):
 
 
 def test_additive_pairs_recovered_exactly():
-    # Cross-check: independent clocks, s_ij = sigma_i^2 + sigma_j^2 exactly (domain.md j.5).
+    # Cross-check: independent clocks, s_ij = sigma_i^2 + sigma_j^2 exactly (variances add).
     truth = np.array([1.0, 2.5, 4.0, 0.3, 7.0]) * 1e-27
     pairs = list(itertools.combinations(range(5), 2))
     s = np.array([truth[i] + truth[j] for i, j in pairs])
@@ -202,17 +170,17 @@ def test_propagated_std_matches_monte_carlo_spread():
     naive = n_cornered_hat(s.mean(axis=1), pairs, pair_std=pair_std,
                            correlation="independent").std
     assert naive[2] < 0.85 * empirical[2]
-    # Truth (domain.md c.3: HVAR of white FM = q1/tau) lies within the Monte Carlo mean's error.
+    # Truth (HVAR of white FM = q1/tau, derived here) lies within the Monte Carlo mean's error.
     tau = m * TAU0_S
     assert np.all(np.abs(est.mean(axis=1) - q1 / tau) < 4 * empirical / np.sqrt(600))
 
 
 @pytest.mark.parametrize("n_clocks", [3, 5])
 def test_simulated_clocks_recovered_within_intervals(n_clocks):
-    # Cross-check: model HVAR of each clock, q1/tau + q2 tau/6 (domain.md c.3), against the hat
+    # Cross-check: model HVAR of each clock, q1/tau + q2 tau/6 (derived here), against the hat
     # of brute-force OHVARs of simulated pair differences (40 seeded realisations of 1024
     # points, white FM + RW FM, levels spread by 18x); pair uncertainties from the exact
-    # quadratic-form EDF (domain.md j.4), EDF 14...530.  The 95 % intervals (+/- 1.96 std) must
+    # quadratic-form EDF (ExactEdf, tests/hadamard_oracles.py), EDF 14...530.  The 95 % intervals (+/- 1.96 std) must
     # cover the truth in 90-98 % of the 840 (n_clocks = 3) or 1400 (n_clocks = 5) cases: the
     # points are correlated across tau and clocks, and at EDF ~ 14 the normal interval is a
     # little short (both seen in 300-realisation runs: coverage 0.94-0.95).
